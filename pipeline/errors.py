@@ -1,0 +1,52 @@
+"""One exception family per kind of failure; the command line turns them into messages and exit codes.
+
+``InputError`` and ``MeshError`` (bad input) give exit status 2; ``PhysicsError`` and ``SolverError``
+(a run that cannot succeed) give exit status 1.  Each carries a list of problems so that every input
+error is reported at once, not only the first.
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Iterable
+
+
+class ThermochainError(Exception):
+    """Base class; ``problems`` holds one line per problem found."""
+
+    exit_status = 1
+
+    def __init__(self, problems: str | Iterable[str]):
+        self.problems = [problems] if isinstance(problems, str) else list(problems)
+        super().__init__("\n".join(self.problems))
+
+
+class InputError(ThermochainError):
+    """A value, name or file given by the user is invalid."""
+
+    exit_status = 2
+
+
+class MeshError(InputError):
+    """The mesh file cannot be used as given."""
+
+
+class PhysicsError(ThermochainError):
+    """The model is well formed but has no meaningful solution (e.g. no path for heat to leave)."""
+
+
+class SolverError(ThermochainError):
+    """A linear or nonlinear solve failed."""
+
+
+def closest(name: str, valid: Iterable[str]) -> str:
+    """A hint naming the valid choice closest to ``name`` (empty when nothing is close)."""
+    match = difflib.get_close_matches(name, list(valid), n=1, cutoff=0.5)
+    return f" (did you mean '{match[0]}'?)" if match else ""
+
+
+def unknown_name(kind: str, name: str, valid: Iterable[str], where: str) -> str:
+    """Message for a name that does not exist, listing what does and the closest match."""
+    valid = sorted(valid)
+    listed = ", ".join(valid) if valid else "none"
+    return f"{where}: {kind} '{name}' does not exist{closest(name, valid)}; {kind}s there are: {listed}"

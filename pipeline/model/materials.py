@@ -1,0 +1,211 @@
+"""Material records, the shipped library, user libraries and per-part orientation.
+
+Values are SI: conductivity W/(m*K), moduli and strengths Pa, expansion 1/K, density kg/m^3,
+temperatures K.  Orthotropic properties are principal values in the material axes; a part's
+``axes`` (rows = material x, y, z directions in model coordinates) turn them into tensors.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field, replace
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+
+from .. import errors
+
+#: Properties every material must give, with their units.
+REQUIRED = {
+    "conductivity": "W/(m*K)",
+    "youngs_modulus": "Pa",
+    "poisson_ratio": "-",
+    "expansion": "1/K",
+    "density": "kg/m^3",
+}
+OPTIONAL = {
+    "shear_modulus": "Pa",
+    "yield_strength": "Pa",
+    "tensile_strength": "Pa",
+    "valid_from": "K",
+    "valid_to": "K",
+}
+UNITS = REQUIRED | OPTIONAL
+TEXT_KEYS = {"title", "kind", "brittle", "note", "sources"}
+KINDS = ("isotropic", "orthotropic")
+
+
+@dataclass(frozen=True)
+class Material:
+    """One material. Orthotropic entries are (x, y, z) principal values; see module docstring."""
+
+    name: str
+    title: str
+    kind: str
+    conductivity: tuple[float, ...]
+    youngs_modulus: tuple[float, ...]
+    poisson_ratio: tuple[float, ...]
+    expansion: tuple[float, ...]
+    density: float
+    shear_modulus: tuple[float, ...] = ()
+    yield_strength: float | None = None
+    tensile_strength: float | None = None
+    brittle: bool = False
+    valid_from: float | None = None
+    valid_to: float | None = None
+    note: str = ""
+    sources: dict[str, str] = field(default_factory=dict)
+    axes: tuple[tuple[float, ...], ...] = ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0))
+
+    def conductivity_tensor(self) -> np.ndarray:
+        """(3, 3) conductivity in model coordinates [W/(m*K)]."""
+        k = np.broadcast_to(np.asarray(self.conductivity, dtype=float), (3,))
+        r = np.asarray(self.axes, dtype=float)
+        return r.T @ np.diag(k) @ r
+
+    def oriented(self, axes) -> "Material":
+        """A copy whose material axes are ``axes`` (rows: material x, y, z in model coordinates)."""
+        return replace(self, axes=_orthonormal_axes(axes, self.name))
+
+    def reads(self, *props: str) -> dict:
+        """The named properties and the axes, as plain data (what a stage's cache key reads)."""
+        out = {p: getattr(self, p) for p in props}
+        if self.kind == "orthotropic":
+            out["axes"] = self.axes
+        return out
+
+
+def _orthonormal_axes(axes, where: str) -> tuple[tuple[float, ...], ...]:
+    r = np.asarray(axes, dtype=float)
+    if r.shape == (2, 3):  # x and y given: z follows
+        r = np.vstack([r, np.cross(r[0], r[1])])
+    if r.shape != (3, 3):
+        raise errors.InputError(f"{where}: axes must be 2 or 3 vectors of 3 components, got shape {r.shape}")
+    norms = np.linalg.norm(r, axis=1)
+    if np.any(norms == 0):
+        raise errors.InputError(f"{where}: an axis vector is zero")
+    r = r / norms[:, None]
+    if not np.allclose(r @ r.T, np.eye(3), atol=1e-6):
+        raise errors.InputError(f"{where}: axes must be mutually perpendicular")
+    if np.linalg.det(r) < 0:
+        raise errors.InputError(f"{where}: axes must form a right-handed set (x cross y = z)")
+    return tuple(tuple(float(v) for v in row) for row in r)
+
+
+def from_record(name: str, record: dict, where: str) -> Material:
+    """Build a ``Material`` from a TOML table; every problem is reported at once."""
+    where = f"{where}: material '{name}'"
+    problems = []
+    unknown = set(record) - set(UNITS) - TEXT_KEYS - {"axes"}
+    for key in sorted(unknown):
+        problems.append(f"{where}: unknown key '{key}'{errors.closest(key, list(UNITS) + list(TEXT_KEYS))}")
+    kind = record.get("kind", "isotropic")
+    if kind not in KINDS:
+        problems.append(f"{where}: kind must be one of {', '.join(KINDS)}, got {kind!r}")
+    width = 3 if kind == "orthotropic" else 1
+    values: dict = {}
+    for key in REQUIRED:
+        if key not in record:
+            problems.append(f"{where}: missing '{key}' [{UNITS[key]}]")
+    for key in UNITS:
+        if key not in record:
+            continue
+        vector = key in ("conductivity", "youngs_modulus", "poisson_ratio", "expansion", "shear_modulus")
+        raw = record[key]
+        seq = raw if isinstance(raw, list) else [raw]
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in seq):
+            problems.append(f"{where}: '{key}' must be a number [{UNITS[key]}], got {raw!r}")
+            continue
+        if vector and len(seq) not in (1, width):
+            problems.append(f"{where}: '{key}' must have {width} value(s) for kind '{kind}', got {len(seq)}")
+            continue
+        if not vector and len(seq) != 1:
+            problems.append(f"{where}: '{key}' must be a single number [{UNITS[key]}]")
+            continue
+        seq = [float(v) for v in seq]
+        problems += _range_problems(where, key, seq)
+        values[key] = tuple(seq) if vector else seq[0]
+    if problems:
+        raise errors.InputError(problems)
+    material = Material(
+        name=name,
+        title=str(record.get("title", name)),
+        kind=kind,
+        brittle=bool(record.get("brittle", False)),
+        note=str(record.get("note", "")),
+        sources={str(k): str(v) for k, v in dict(record.get("sources", {})).items()},
+        **values,
+    )
+    if "axes" in record:
+        material = material.oriented(record["axes"])
+    return material
+
+
+def _range_problems(where: str, key: str, values: list[float]) -> list[str]:
+    bad = []
+    if key == "poisson_ratio" and len(values) == 1 and not -1.0 < values[0] < 0.5:
+        bad.append(f"{where}: poisson_ratio must lie in (-1, 0.5), got {values[0]}")
+    elif key in ("valid_from", "valid_to") and values[0] < 0:
+        bad.append(f"{where}: '{key}' is a temperature in K and must be >= 0, got {values[0]}")
+    elif key not in ("poisson_ratio", "expansion") and any(v <= 0 for v in values):
+        bad.append(f"{where}: '{key}' must be positive [{UNITS[key]}], got {values if len(values) > 1 else values[0]}")
+    return bad
+
+
+@dataclass(frozen=True)
+class Library:
+    """Materials by name, with the file each came from."""
+
+    materials: dict[str, Material]
+    origin: dict[str, str]
+
+    def __getitem__(self, name: str) -> Material:
+        if name not in self.materials:
+            raise errors.InputError(errors.unknown_name("material", name, self.materials, "material library"))
+        return self.materials[name]
+
+    def __contains__(self, name: str) -> bool:
+        return name in self.materials
+
+    def __iter__(self):
+        return iter(sorted(self.materials))
+
+    def __len__(self) -> int:
+        return len(self.materials)
+
+    def extended(self, records: dict, where: str) -> "Library":
+        """A library with ``records`` (name -> TOML table) added; a name already present is replaced."""
+        problems, added = [], {}
+        for name, record in records.items():
+            try:
+                added[name] = from_record(name, record, where)
+            except errors.InputError as exc:
+                problems += exc.problems
+        if problems:
+            raise errors.InputError(problems)
+        return Library({**self.materials, **added}, {**self.origin, **{n: where for n in added}})
+
+
+def read_file(path: str | Path, base: Library | None = None) -> Library:
+    """Read a materials TOML file (``[materials.NAME]`` tables) on top of ``base``."""
+    path = Path(path)
+    try:
+        with path.open("rb") as f:
+            data = tomllib.load(f)
+    except FileNotFoundError:
+        raise errors.InputError(f"{path}: material file not found") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise errors.InputError(f"{path}: not valid TOML: {exc}") from None
+    records = data.get("materials")
+    if not isinstance(records, dict):
+        raise errors.InputError(f"{path}: expected tables [materials.NAME]")
+    return (base or Library({}, {})).extended(records, str(path))
+
+
+def library() -> Library:
+    """The library shipped with thermochain (``pipeline/data/materials.toml``)."""
+    ref = resources.files("pipeline") / "data" / "materials.toml"
+    with resources.as_file(ref) as path:
+        lib = read_file(path)
+    return Library(lib.materials, {n: "thermochain library" for n in lib.materials})

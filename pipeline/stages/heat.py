@@ -1,0 +1,297 @@
+"""Steady heat conduction: -div(k grad T) = q in each part, with surface fluxes, convection and fixed T.
+
+Weak form (theory in docs/theory.md): find T with T = T_fixed on fixed surfaces such that
+    int k grad T . grad v dV + sum_conv int h T v dA = int q v dV + sum_conv int h T_amb v dA + int q'' v dA
+for every v vanishing on fixed surfaces.  Heat flows are positive into the body.  Units: T [K],
+k [W/(m*K)], q [W/m^3], q'' [W/m^2], h [W/(m^2*K)].
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
+from skfem import BilinearForm, Functional, LinearForm, asm
+from skfem.helpers import dot, grad, mul
+
+from .. import errors
+from ..fields import TemperatureField
+from ..model.materials import Material
+from ..model.units import celsius
+from . import fem
+from .solvers import solve_spd
+
+STAGE_VERSION = 1
+
+
+@dataclass(frozen=True)
+class Convection:
+    """Film coefficient [W/(m^2*K)] to an ambient temperature [K]."""
+
+    film_coefficient: float
+    ambient: float
+
+
+@dataclass(frozen=True)
+class HeatFlux:
+    """Heat into the body through a surface: per area [W/m^2] or in total [W] (spread evenly)."""
+
+    per_area: float | None = None
+    total: float | None = None
+
+
+@dataclass(frozen=True)
+class HeatSpec:
+    """What the heat stage reads besides the domain.
+
+    materials: part -> material (oriented where orthotropic).  power: part -> W, spread over the
+    part's meshed volume.  generation: part -> W/m^3.  flux: surface -> HeatFlux.
+    convection: surface -> Convection.  fixed_temperature: surface -> K.
+    probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
+    """
+
+    materials: Mapping[str, Material]
+    power: Mapping[str, float] = field(default_factory=dict)
+    generation: Mapping[str, float] = field(default_factory=dict)
+    flux: Mapping[str, HeatFlux] = field(default_factory=dict)
+    convection: Mapping[str, Convection] = field(default_factory=dict)
+    fixed_temperature: Mapping[str, float] = field(default_factory=dict)
+    probes: Mapping[str, tuple[float, float, float]] = field(default_factory=dict)
+    order: int = 1
+    solver: str = "auto"
+
+
+@BilinearForm
+def conduction(u, v, w):
+    return dot(mul(w.k, grad(u)), grad(v))
+
+
+@BilinearForm
+def film(u, v, w):
+    return w.h * u * v
+
+
+@LinearForm
+def source(v, w):
+    return w.q * v
+
+
+@Functional
+def integral(w):
+    return w.f
+
+
+def check(domain, spec: HeatSpec, where: str = "heat") -> None:
+    """Raise one ``InputError`` listing every problem of ``spec`` on ``domain``."""
+    problems: list[str] = []
+    if spec.order not in fem.ORDERS:
+        problems.append(f"{where}: order must be 1 or 2, got {spec.order!r}")
+    for part in domain.parts:
+        if part not in spec.materials:
+            problems.append(f"{where}: part '{part}' has no material")
+    named_parts = [(k, "materials") for k in spec.materials] + [(k, "power") for k in spec.power]
+    named_parts += [(k, "generation") for k in spec.generation]
+    for part, key in named_parts:
+        if part not in domain.parts:
+            problems.append(errors.unknown_name("part", part, domain.parts, f"{where}.{key}"))
+    claimed: dict[str, str] = {}
+    for key, group in (("fixed_temperature", spec.fixed_temperature), ("convection", spec.convection),
+                       ("flux", spec.flux)):
+        for surface in group:
+            if surface not in domain.surfaces:
+                problems.append(errors.unknown_name("surface", surface, domain.surfaces, f"{where}.{key}"))
+                continue
+            if surface in claimed and "fixed_temperature" in (claimed[surface], key):
+                problems.append(f"{where}: surface '{surface}' has both {claimed[surface]} and {key}; "
+                                "a fixed temperature cannot be combined with another condition")
+            claimed.setdefault(surface, key)
+            if key != "fixed_temperature":
+                inner = int((domain.mesh.f2t[1, domain.surfaces[surface]] >= 0).sum())
+                if inner:
+                    problems.append(f"{where}.{key}: surface '{surface}' has {inner} facets inside the body, "
+                                    "not on its boundary; convection and flux need a boundary surface")
+    problems += _value_problems(spec, where)
+    if problems:
+        raise errors.InputError(problems)
+
+
+def _value_problems(spec: HeatSpec, where: str) -> list[str]:
+    bad = []
+    for part, m in spec.materials.items():
+        if np.any(np.asarray(m.conductivity) <= 0):
+            bad.append(f"{where}: material '{m.name}' of part '{part}' needs a positive conductivity")
+    for name, c in spec.convection.items():
+        if not c.film_coefficient > 0:
+            bad.append(f"{where}.convection.{name}: film_coefficient must be > 0 W/(m^2*K), got {c.film_coefficient}")
+        if not c.ambient >= 0:
+            bad.append(f"{where}.convection.{name}: ambient must be >= 0 K, got {c.ambient}")
+    for name, t in spec.fixed_temperature.items():
+        if not t >= 0:
+            bad.append(f"{where}.fixed_temperature.{name}: temperature must be >= 0 K, got {t}")
+    for name, f in spec.flux.items():
+        if (f.per_area is None) == (f.total is None):
+            bad.append(f"{where}.flux.{name}: give exactly one of per_area [W/m^2] or total [W]")
+    for key, group in (("power", spec.power), ("generation", spec.generation)):
+        for name, value in group.items():
+            if not np.isfinite(value):
+                bad.append(f"{where}.{key}.{name}: must be a finite number, got {value}")
+    return bad
+
+
+def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
+    """Solve steady conduction on ``domain``; see the module docstring for the equations."""
+    check(domain, spec, where)
+    _check_heat_can_leave(domain, spec, where)
+    start = time.perf_counter()
+    basis = fem.cell_basis(domain, spec.order)
+    mesh = domain.mesh
+
+    k = np.stack([spec.materials[p].conductivity_tensor() for p in sorted(domain.parts)])
+    k_elem = k[domain.part_ids()]
+    A = asm(conduction, basis, k=fem.per_element(k_elem, basis))
+
+    loads, balance = [], []
+    q = np.zeros(len(domain.tetrahedra))
+    for part, power in spec.power.items():
+        volume = domain.part_volume(part)
+        q[domain.parts[part]] += power / volume
+        loads.append({"part": part, "power_W": power, "generation_W_per_m3": power / volume, "volume_m3": volume})
+    for part, gen in spec.generation.items():
+        volume = domain.part_volume(part)
+        q[domain.parts[part]] += gen
+        loads.append({"part": part, "power_W": gen * volume, "generation_W_per_m3": gen, "volume_m3": volume})
+    b = asm(source, basis, q=fem.per_element(q, basis))
+    for rec in loads:
+        balance.append({"name": rec["part"], "kind": "power", "heat_in_W": rec["power_W"]})
+
+    film_bases = {}
+    for name, c in spec.convection.items():
+        fb = fem.facet_basis(domain, spec.order, domain.surfaces[name])
+        film_bases[name] = fb
+        A = A + asm(film, fb, h=c.film_coefficient)
+        b = b + asm(source, fb, q=c.film_coefficient * c.ambient)
+    for name, f in spec.flux.items():
+        facets = domain.surfaces[name]
+        per_area = f.per_area if f.per_area is not None else f.total / domain.facet_areas(facets).sum()
+        fb = fem.facet_basis(domain, spec.order, facets)
+        b = b + asm(source, fb, q=per_area)
+        total = per_area * domain.facet_areas(facets).sum()
+        balance.append({"name": name, "kind": "heat_flux", "heat_in_W": float(total)})
+
+    T = np.zeros(basis.N)
+    owner: dict[str, np.ndarray] = {}
+    fixed = np.zeros(0, dtype=np.int64)
+    for name, value in spec.fixed_temperature.items():
+        dofs = np.setdiff1d(basis.get_dofs(domain.surfaces[name]).all(), fixed)
+        owner[name] = dofs
+        T[dofs] = value
+        fixed = np.union1d(fixed, dofs)
+    free = np.setdiff1d(np.arange(basis.N), fixed)
+    A = A.tocsr()
+    rhs = b[free] - A[free][:, fixed] @ T[fixed]
+    T[free], record = solve_spd(A[free][:, free], rhs, method=spec.solver)
+
+    reaction = A @ T - b  # nodal heat supplied through fixed-temperature dofs [W]
+    for name, dofs in owner.items():
+        balance.append({"name": name, "kind": "fixed_temperature", "heat_in_W": float(reaction[dofs].sum())})
+    for name, fb in film_bases.items():
+        c = spec.convection[name]
+        out = asm(integral, fb, f=c.film_coefficient * (fb.interpolate(T) - c.ambient))
+        balance.append({"name": name, "kind": "convection", "heat_in_W": -float(out)})
+
+    parts = _part_statistics(domain, basis, T)
+    notices = list(domain.notices) + _validity_notices(spec, parts)
+    return TemperatureField(
+        temperature=T, order=spec.order, vertices=mesh.nvertices, parts=parts, balance=tuple(balance),
+        probes=_probe_values(domain, basis, T, spec.probes, where), loads=tuple(loads),
+        adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
+        domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION},
+    )
+
+
+def _check_heat_can_leave(domain, spec: HeatSpec, where: str) -> None:
+    """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
+    tets = domain.tetrahedra
+    n = len(domain.points)
+    rows = np.repeat(tets[:, 0], 3)
+    cols = tets[:, 1:].ravel()
+    graph = sp.coo_matrix((np.ones(len(rows)), (rows, cols)), shape=(n, n))
+    count, label = connected_components(graph, directed=False)
+    sinks = list(spec.convection) + list(spec.fixed_temperature)
+    reached = np.zeros(count, dtype=bool)
+    for name in sinks:
+        reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
+    problems = []
+    for c in np.flatnonzero(~reached):
+        parts = sorted({p for p, ids in domain.parts.items() if np.any(label[tets[ids, 0]] == c)})
+        heated = [p for p in parts if spec.power.get(p, 0) or spec.generation.get(p, 0)]
+        if heated:
+            problems.append(
+                f"{where}: parts {', '.join(parts)} receive power ({', '.join(heated)}) but no convection or "
+                "fixed temperature reaches them: there is no steady state; add a boundary that removes heat"
+            )
+        else:
+            problems.append(
+                f"{where}: parts {', '.join(parts)} touch no convection or fixed-temperature surface, so their "
+                "temperature is undetermined; add such a boundary or join them to a part that has one"
+            )
+    if problems:
+        raise errors.PhysicsError(problems)
+
+
+def _part_statistics(domain, basis, T: np.ndarray) -> dict[str, dict[str, float]]:
+    volumes = integral.elemental(basis, f=np.ones_like(basis.interpolate(T).value))
+    weighted = integral.elemental(basis, f=basis.interpolate(T))
+    out = {}
+    for name in sorted(domain.parts):
+        ids = domain.parts[name]
+        values = T[np.unique(basis.element_dofs[:, ids])]
+        out[name] = {"min": float(values.min()), "max": float(values.max()),
+                     "mean": float(weighted[ids].sum() / volumes[ids].sum())}
+    return out
+
+
+def _probe_values(domain, basis, T, probes, where) -> dict[str, float]:
+    if not probes:
+        return {}
+    names = list(probes)
+    points = np.array([probes[n] for n in names], dtype=float).T
+    problems = []
+    finder = domain.mesh.element_finder()
+    for i, name in enumerate(names):
+        try:
+            finder(*points[:, i : i + 1])
+        except ValueError:
+            problems.append(f"{where}: probe '{name}' at {points[:, i].tolist()} m is outside the mesh")
+    if problems:
+        raise errors.InputError(problems)
+    values = basis.probes(points) @ T
+    return {n: float(v) for n, v in zip(names, values)}
+
+
+def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:
+    used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux)
+    out = [s for s in sorted(domain.surfaces) if s not in used]
+    boundary = domain.boundary_facets()
+    named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] or [np.zeros(0, dtype=np.int64)])
+    rest = np.setdiff1d(boundary, named)
+    if len(rest):
+        out.append(f"(boundary in no surface group: {len(rest)} facets, {domain.facet_areas(rest).sum():.4g} m^2)")
+    return tuple(out)
+
+
+def _validity_notices(spec: HeatSpec, parts: dict) -> list[str]:
+    out = []
+    for part, stats in parts.items():
+        m = spec.materials[part]
+        if m.valid_to is not None and stats["max"] > m.valid_to:
+            out.append(f"part '{part}' reaches {celsius(stats['max']):.1f} degC, above the {celsius(m.valid_to):.0f} "
+                       f"degC to which the data of '{m.name}' hold")
+        if m.valid_from is not None and stats["min"] < m.valid_from:
+            out.append(f"part '{part}' falls to {celsius(stats['min']):.1f} degC, below the {celsius(m.valid_from):.0f} "
+                       f"degC from which the data of '{m.name}' hold")
+    return out
