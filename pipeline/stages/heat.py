@@ -9,7 +9,7 @@ k [W/(m*K)], q [W/m^3], q'' [W/m^2], h [W/(m^2*K)].
 from __future__ import annotations
 
 import time
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -49,17 +49,18 @@ class HeatSpec:
     """What the heat stage reads besides the domain.
 
     materials: part -> material (oriented where orthotropic).  power: part -> W, spread over the
-    part's meshed volume.  generation: part -> W/m^3.  flux: surface -> HeatFlux.
-    convection: surface -> Convection.  fixed_temperature: surface -> K.
+    part's meshed volume.  generation: part -> W/m^3, a number or a function of the coordinates
+    ``x`` (shape (3, ...), m) for a measured or manufactured distribution.  flux: surface -> HeatFlux.
+    convection: surface -> Convection.  fixed_temperature: surface -> K, a number or a function of x.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
     """
 
     materials: Mapping[str, Material]
     power: Mapping[str, float] = field(default_factory=dict)
-    generation: Mapping[str, float] = field(default_factory=dict)
+    generation: Mapping[str, float | Callable] = field(default_factory=dict)
     flux: Mapping[str, HeatFlux] = field(default_factory=dict)
     convection: Mapping[str, Convection] = field(default_factory=dict)
-    fixed_temperature: Mapping[str, float] = field(default_factory=dict)
+    fixed_temperature: Mapping[str, float | Callable] = field(default_factory=dict)
     probes: Mapping[str, tuple[float, float, float]] = field(default_factory=dict)
     order: int = 1
     solver: str = "auto"
@@ -130,14 +131,14 @@ def _value_problems(spec: HeatSpec, where: str) -> list[str]:
         if not c.ambient >= 0:
             bad.append(f"{where}.convection.{name}: ambient must be >= 0 K, got {c.ambient}")
     for name, t in spec.fixed_temperature.items():
-        if not t >= 0:
+        if not callable(t) and not t >= 0:
             bad.append(f"{where}.fixed_temperature.{name}: temperature must be >= 0 K, got {t}")
     for name, f in spec.flux.items():
         if (f.per_area is None) == (f.total is None):
             bad.append(f"{where}.flux.{name}: give exactly one of per_area [W/m^2] or total [W]")
     for key, group in (("power", spec.power), ("generation", spec.generation)):
         for name, value in group.items():
-            if not np.isfinite(value):
+            if not callable(value) and not np.isfinite(value):
                 bad.append(f"{where}.{key}.{name}: must be a finite number, got {value}")
     return bad
 
@@ -155,16 +156,20 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     A = asm(conduction, basis, k=fem.per_element(k_elem, basis))
 
     loads, balance = [], []
-    q = np.zeros(len(domain.tetrahedra))
+    q = np.zeros((len(domain.tetrahedra), basis.X.shape[1]))  # W/m^3 at quadrature points
+    x = basis.mapping.F(basis.X)  # (3, nel, nqp) [m]
     for part, power in spec.power.items():
         volume = domain.part_volume(part)
         q[domain.parts[part]] += power / volume
         loads.append({"part": part, "power_W": power, "generation_W_per_m3": power / volume, "volume_m3": volume})
     for part, gen in spec.generation.items():
+        ids = domain.parts[part]
+        g = gen(x[:, ids]) if callable(gen) else np.full(basis.dx[ids].shape, float(gen))
+        q[ids] += g
         volume = domain.part_volume(part)
-        q[domain.parts[part]] += gen
-        loads.append({"part": part, "power_W": gen * volume, "generation_W_per_m3": gen, "volume_m3": volume})
-    b = asm(source, basis, q=fem.per_element(q, basis))
+        power = float(np.sum(g * basis.dx[ids]))
+        loads.append({"part": part, "power_W": power, "generation_W_per_m3": power / volume, "volume_m3": volume})
+    b = asm(source, basis, q=q)
     for rec in loads:
         balance.append({"name": rec["part"], "kind": "power", "heat_in_W": rec["power_W"]})
 
@@ -188,7 +193,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     for name, value in spec.fixed_temperature.items():
         dofs = np.setdiff1d(basis.get_dofs(domain.surfaces[name]).all(), fixed)
         owner[name] = dofs
-        T[dofs] = value
+        T[dofs] = value(basis.doflocs[:, dofs]) if callable(value) else value
         fixed = np.union1d(fixed, dofs)
     free = np.setdiff1d(np.arange(basis.N), fixed)
     A = A.tocsr()
@@ -206,7 +211,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     parts = _part_statistics(domain, basis, T)
     notices = list(domain.notices) + _validity_notices(spec, parts)
     return TemperatureField(
-        temperature=T, order=spec.order, vertices=mesh.nvertices, parts=parts, balance=tuple(balance),
+        temperature=T, order=spec.order, vertices=int(mesh.nvertices), parts=parts, balance=tuple(balance),
         probes=_probe_values(domain, basis, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
         domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION},
@@ -244,7 +249,7 @@ def _check_heat_can_leave(domain, spec: HeatSpec, where: str) -> None:
 
 
 def _part_statistics(domain, basis, T: np.ndarray) -> dict[str, dict[str, float]]:
-    volumes = integral.elemental(basis, f=np.ones_like(basis.interpolate(T).value))
+    volumes = integral.elemental(basis, f=np.ones_like(basis.dx))
     weighted = integral.elemental(basis, f=basis.interpolate(T))
     out = {}
     for name in sorted(domain.parts):

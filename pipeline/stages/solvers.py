@@ -45,7 +45,7 @@ def solve_spd(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float =
     """Solve ``A x = b`` for a symmetric positive definite ``A``; returns x and its record."""
     if method not in METHODS:
         raise errors.InputError(f"solver method {method!r} is not known; valid: {', '.join(METHODS)}")
-    n = A.shape[0]
+    n = int(A.shape[0])
     if method == "auto":
         method = "direct" if n <= DIRECT_LIMIT else "amg"
     start = time.perf_counter()

@@ -1,0 +1,141 @@
+"""The ``thermochain`` command: subcommands, logging and exit codes; no logic beyond wiring.
+
+Exit status: 0 success, 2 bad input (workflow, mesh, names, values), 1 a run that failed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+import traceback
+
+from . import __version__, errors
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="thermochain", description=(
+        "Steady heat -> thermal strain -> stress finite elements for electronics housings."))
+    p.add_argument("--version", action="version", version=f"thermochain {__version__}")
+    p.add_argument("--debug", action="store_true", help="show tracebacks")
+    p.add_argument("-q", "--quiet", action="store_true", help="only errors")
+    sub = p.add_subparsers(dest="command", required=True)
+    run = sub.add_parser("run", help="run a workflow and write its results folder")
+    run.add_argument("workflow")
+    run.add_argument("-o", "--output", help="results folder (default: the workflow's output.folder)")
+    check = sub.add_parser("check", help="validate a workflow and its mesh without solving")
+    check.add_argument("workflow")
+    mats = sub.add_parser("materials", help="list the material library with units and sources")
+    mats.add_argument("name", nargs="?", help="show one material in full")
+    mats.add_argument("--file", help="a materials TOML file to add to the library")
+    ins = sub.add_parser("inspect", help="read a mesh and list its parts, surfaces and bounding box")
+    ins.add_argument("mesh")
+    ins.add_argument("--unit", required=True, help="length unit of the mesh: m, cm, mm, um or in")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    logging.basicConfig(level=logging.ERROR if args.quiet else logging.WARNING,
+                        format="%(levelname)s: %(message)s", stream=sys.stderr)
+    try:
+        return COMMANDS[args.command](args)
+    except errors.ThermochainError as exc:
+        if args.debug:
+            traceback.print_exc()
+        kind = "input error" if exc.exit_status == 2 else "run failed"
+        print(f"thermochain: {kind}:", file=sys.stderr)
+        for line in exc.problems:
+            print(f"  {line}", file=sys.stderr)
+        return exc.exit_status
+    except KeyboardInterrupt:
+        print("thermochain: interrupted", file=sys.stderr)
+        return 130
+
+
+def _run(args) -> int:
+    from .flow import runner
+
+    record = runner.run(args.workflow, args.output)
+    if not args.quiet:
+        _print_run(record)
+    return 0
+
+
+def _check(args) -> int:
+    from .flow import runner
+
+    model = runner.check(args.workflow)
+    if not args.quiet:
+        print(model.domain.describe())
+        for name, stage in model.workflow.stages.items():
+            print(f"stage {name} ({stage.kind}, P{stage.order}): inputs valid")
+    return 0
+
+
+def _materials(args) -> int:
+    from rich.console import Console
+    from rich.table import Table
+
+    from .model import materials
+
+    lib = materials.read_file(args.file, materials.library()) if args.file else materials.library()
+    console = Console()
+    if args.name:
+        m = lib[args.name]
+        table = Table(title=f"{m.name}: {m.title} ({m.kind})")
+        for col in ("property", "value", "unit", "source"):
+            table.add_column(col)
+        for prop, unit in materials.UNITS.items():
+            value = getattr(m, prop)
+            if value not in (None, ()):
+                table.add_row(prop, _fmt(value), unit, m.sources.get(prop, ""))
+        console.print(table)
+        if m.note:
+            console.print(f"note: {m.note}")
+        return 0
+    table = Table(title="thermochain material library (typical values, not design minima)")
+    for col in ("name", "title", "k W/(m*K)", "E GPa", "nu", "alpha 1e-6/K", "strength MPa"):
+        table.add_column(col)
+    for name in lib:
+        m = lib[name]
+        strength = m.yield_strength or m.tensile_strength
+        table.add_row(name, m.title, _fmt(m.conductivity), _fmt(tuple(e / 1e9 for e in m.youngs_modulus)),
+                      _fmt(m.poisson_ratio), _fmt(tuple(a * 1e6 for a in m.expansion)),
+                      f"{strength / 1e6:.0f}{' (fracture)' if m.brittle else ''}" if strength else "")
+    console.print(table)
+    console.print("Sources per value: thermochain materials NAME")
+    return 0
+
+
+def _inspect(args) -> int:
+    from .model import mesh
+
+    print(mesh.load(args.mesh, unit=args.unit).describe())
+    return 0
+
+
+def _fmt(value) -> str:
+    if isinstance(value, tuple):
+        return ", ".join(f"{v:.4g}" for v in value)
+    return f"{value:.4g}" if isinstance(value, float) else str(value)
+
+
+def _print_run(record: dict) -> None:
+    print(f"thermochain {record['thermochain']}: {record['workflow']} ({record['status']}, {record['seconds']:.1f} s)")
+    for name, stage in record["stages"].items():
+        print(f"stage {name}: {stage['status']} ({stage['reason']})")
+        for part, s in stage.get("parts_degC", {}).items():
+            print(f"  {part:<16} min {s['min']:8.2f}  mean {s['mean']:8.2f}  max {s['max']:8.2f} degC")
+        for probe, t in stage.get("probes_degC", {}).items():
+            print(f"  probe {probe:<10} {t:8.2f} degC")
+        for r in stage.get("heat_balance_W", []):
+            print(f"  {r['kind']:<18} {r['name']:<16} {r['heat_in_W']:+10.4f} W")
+        print(f"  relative imbalance {stage.get('relative_imbalance', 0):.1e}; "
+              f"adiabatic: {', '.join(stage.get('adiabatic_surfaces', [])) or 'none'}")
+        for note in stage.get("notices", []):
+            print(f"  note: {note}")
+    print("Caution: " + record["caution"])
+
+
+COMMANDS = {"run": _run, "check": _check, "materials": _materials, "inspect": _inspect}
