@@ -6,7 +6,9 @@ data and ``field_data`` names).  Coordinates are scaled to metres once, here.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
+import io
 import logging
 import warnings
 from dataclasses import dataclass, field
@@ -150,11 +152,13 @@ def load(path: str | Path, unit: str) -> Domain:
         raise errors.MeshError(f"{path}: mesh file not found")
     data = path.read_bytes()
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
+        chatter = io.StringIO()
+        with warnings.catch_warnings(), contextlib.redirect_stdout(chatter), contextlib.redirect_stderr(chatter):
+            warnings.simplefilter("ignore")  # meshio prints and warns on harmless header details
             m = meshio.read(path)
-    except Exception as exc:  # meshio raises many types for unreadable files
-        raise errors.MeshError(f"{path}: meshio cannot read this file ({type(exc).__name__}: {exc})") from None
+    except (Exception, SystemExit) as exc:  # meshio raises many types, and exits, on unreadable files
+        detail = " ".join(chatter.getvalue().split()) or f"{type(exc).__name__}: {exc}"
+        raise errors.MeshError(f"{path}: meshio cannot read this file ({detail})") from None
     return from_meshio(m, unit=unit, factor=factor, source=str(path), source_hash=hashlib.sha256(data).hexdigest())
 
 
@@ -253,7 +257,7 @@ def _parts(tags: np.ndarray, names: dict[int, str], where: str, notices: list[st
     for tag in unique:
         name = names.get(int(tag))
         if name is None:
-            name = f"volume_{int(tag)}"
+            name = f"unnamed_volume_{int(tag)}"
             notices.append(f"volume group {int(tag)} has no name; it is called '{name}' (unnamed group)")
         if name in parts:
             raise errors.MeshError(f"{where}: two volume groups share the name '{name}'; names must be unique")
@@ -291,7 +295,7 @@ def _surfaces(mesh, tri, tri_tag, names, part_names, where, notices) -> dict[str
         if tag == 0 and name is None:
             continue  # triangles outside any surface group
         if name is None:
-            name = f"surface_{int(tag)}"
+            name = f"unnamed_surface_{int(tag)}"
             notices.append(f"surface group {int(tag)} has no name; it is called '{name}' (unnamed group)")
         if name in surfaces:
             raise errors.MeshError(f"{where}: two surface groups share the name '{name}'; names must be unique")
