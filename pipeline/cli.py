@@ -80,7 +80,7 @@ def _materials(args) -> int:
     from .model import materials
 
     lib = materials.read_file(args.file, materials.library()) if args.file else materials.library()
-    console = Console()
+    console = Console(width=None if sys.stdout.isatty() else 160)
     if args.name:
         m = lib[args.name]
         table = Table(title=f"{m.name}: {m.title} ({m.kind})")
@@ -102,7 +102,7 @@ def _materials(args) -> int:
         strength = m.yield_strength or m.tensile_strength
         table.add_row(name, m.title, _fmt(m.conductivity), _fmt(tuple(e / 1e9 for e in m.youngs_modulus)),
                       _fmt(m.poisson_ratio), _fmt(tuple(a * 1e6 for a in m.expansion)),
-                      f"{strength / 1e6:.0f}{' (fracture)' if m.brittle else ''}" if strength else "")
+                      f"{strength / 1e6:.3g}{' (fracture)' if m.brittle else ''}" if strength else "")
     console.print(table)
     console.print("Sources per value: thermochain materials NAME")
     return 0

@@ -36,6 +36,13 @@ class Model:
 
 def load_model(path: str | Path) -> Model:
     """Parse the workflow, read the mesh and resolve materials; every input problem at once."""
+    model, problems = _load(path)
+    if problems:
+        raise errors.InputError(problems)
+    return model
+
+
+def _load(path: str | Path) -> tuple[Model, list[str]]:
     workflow, base = wf.load(path)
     domain = mesh_mod.load(base / workflow.mesh.file, unit=workflow.mesh.unit)
     library = materials_mod.library()
@@ -63,9 +70,7 @@ def load_model(path: str | Path) -> Model:
     for part in domain.parts:
         if part not in workflow.parts:
             problems.append(f"{path}: mesh part '{part}' has no entry in [parts]; give it a material")
-    if problems:
-        raise errors.InputError(problems)
-    return Model(workflow, base, domain, chosen)
+    return Model(workflow, base, domain, chosen), problems
 
 
 def heat_spec(model: Model, name: str) -> heat.HeatSpec:
@@ -87,13 +92,13 @@ def heat_spec(model: Model, name: str) -> heat.HeatSpec:
 
 def check(path: str | Path) -> Model:
     """Validate the workflow, the mesh and every stage's inputs without solving."""
-    model = load_model(path)
-    problems = []
+    model, problems = _load(path)
+    unresolved = [f"part '{p}' has no material" for p in model.domain.parts if p not in model.materials]
     for name in model.workflow.stages:
         try:
             heat.check(model.domain, heat_spec(model, name), where=f"{path}: stages.{name}")
-        except errors.InputError as exc:
-            problems += exc.problems
+        except errors.InputError as exc:  # parts whose material failed are reported above already
+            problems += [p for p in exc.problems if not any(p.endswith(u) for u in unresolved)]
     if problems:
         raise errors.InputError(problems)
     return model
@@ -120,7 +125,7 @@ def run(path: str | Path, output: str | Path | None = None) -> dict:
     status = "ok"
     for name in model.workflow.stages:
         where = f"{path}: stages.{name}"
-        entry = {"kind": "heat", "status": "computed", "reason": "computed: this version has no stage store yet"}
+        entry = {"kind": "heat", "status": "computed", "reason": "no stage store yet: every run computes every stage"}
         try:
             field = heat.solve(model.domain, heat_spec(model, name), where=where)
         except errors.ThermochainError as exc:
