@@ -22,14 +22,14 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", required=True)
     run = sub.add_parser("run", help="run a workflow and write its results folder")
     run.add_argument("workflow")
-    run.add_argument("-o", "--output", help="results folder (default: the workflow's output.folder)")
+    run.add_argument("--out", help="results folder (default: the workflow's output.folder)")
     check = sub.add_parser("check", help="validate a workflow and its mesh without solving")
     check.add_argument("workflow")
     mats = sub.add_parser("materials", help="list the material library with units and sources")
     mats.add_argument("name", nargs="?", help="show one material in full")
     mats.add_argument("--file", help="a materials TOML file to add to the library")
-    ins = sub.add_parser("inspect", help="read a mesh and list its parts, surfaces and bounding box")
-    ins.add_argument("mesh")
+    ins = sub.add_parser("mesh", help="read a mesh and list its parts, surfaces, interfaces and bounding box")
+    ins.add_argument("file")
     ins.add_argument("--unit", required=True, help="length unit of the mesh: m, cm, mm, um or in")
     return p
 
@@ -56,7 +56,7 @@ def main(argv: list[str] | None = None) -> int:
 def _run(args) -> int:
     from .flow import runner
 
-    record = runner.run(args.workflow, args.output)
+    record = runner.run(args.workflow, args.out)
     if not args.quiet:
         _print_run(record)
     return 0
@@ -108,10 +108,10 @@ def _materials(args) -> int:
     return 0
 
 
-def _inspect(args) -> int:
+def _mesh(args) -> int:
     from .model import mesh
 
-    print(mesh.load(args.mesh, unit=args.unit).describe())
+    print(mesh.load(args.file, unit=args.unit).describe())
     return 0
 
 
@@ -138,4 +138,4 @@ def _print_run(record: dict) -> None:
     print("Caution: " + record["caution"])
 
 
-COMMANDS = {"run": _run, "check": _check, "materials": _materials, "inspect": _inspect}
+COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh}

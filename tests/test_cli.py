@@ -1,4 +1,4 @@
-"""The thermochain command: the demo workflow end to end, check, materials, inspect, exit codes."""
+"""The thermochain command: the demo workflow end to end, check, materials, mesh, exit codes."""
 
 from __future__ import annotations
 
@@ -22,7 +22,7 @@ def thermochain(*args, cwd=None):
 
 def test_demo_workflow_runs_and_writes_summary_and_vtu(tmp_path):
     out = tmp_path / "results"
-    r = thermochain("run", DEMO, "-o", out)
+    r = thermochain("run", DEMO, "--out", out)
     assert r.returncode == 0, r.stderr
     summary = json.loads((out / "summary.json").read_text())
     assert summary["status"] == "ok"
@@ -67,7 +67,7 @@ def write_variant(tmp_path, old, new):
 ])
 def test_bad_input_gives_a_clear_message_and_status_2(tmp_path, old, new, message):
     path = write_variant(tmp_path, old, new)
-    r = thermochain("run", path, "-o", tmp_path / "out")
+    r = thermochain("run", path, "--out", tmp_path / "out")
     assert r.returncode == 2
     assert message in r.stderr
     assert "Traceback" not in r.stderr
@@ -88,7 +88,7 @@ def test_no_way_for_heat_to_leave_is_a_failed_run(tmp_path):
     start = text.index("fixed_temperature")
     end = text.index("[probes]")
     path = write_variant(tmp_path, text[start:end], "\n")
-    r = thermochain("run", path, "-o", tmp_path / "out")
+    r = thermochain("run", path, "--out", tmp_path / "out")
     assert r.returncode == 1
     assert "no steady state" in r.stderr and "Traceback" not in r.stderr
     assert json.loads((tmp_path / "out" / "summary.json").read_text())["stages"]["heat"]["status"] == "failed"
@@ -101,8 +101,8 @@ def test_materials_lists_the_library_and_one_material_with_sources():
     assert one.returncode == 0 and "conductivity" in one.stdout and "Sarvar" in one.stdout
 
 
-def test_inspect_reports_the_bounding_box_in_metres():
-    r = thermochain("inspect", ROOT / "cases" / "heat_spreader" / "heat_spreader_coarse.msh", "--unit", "mm")
+def test_mesh_command_reports_the_bounding_box_in_metres():
+    r = thermochain("mesh", ROOT / "cases" / "heat_spreader" / "heat_spreader_coarse.msh", "--unit", "mm")
     assert r.returncode == 0
     assert "0.06" in r.stdout and "part chip" in r.stdout
 
