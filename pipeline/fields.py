@@ -82,3 +82,86 @@ class TemperatureField:
             f"<TemperatureField P{self.order}, {len(self.temperature)} dofs, {t.min():.2f} to {t.max():.2f} degC, "
             f"{len(self.parts)} parts, heat in {self.heat_in:.4g} W, imbalance {self.imbalance:.1e}>"
         )
+
+
+@dataclass(frozen=True, repr=False)
+class ThermalLoad:
+    """Temperature on the structural model and the stress-free temperature.
+
+    temperature: values at the degrees of freedom of a P``order`` field on the structural domain [K]
+    (the stress stage evaluates it at its own quadrature points).  reference: stress-free temperature
+    per element [K].  diagnostics: method ("same mesh", "cross mesh", "external file", "function"),
+    points outside the source and the largest distance [m], source and mapped min/max [K].
+    """
+
+    temperature: np.ndarray
+    order: int
+    reference: np.ndarray
+    diagnostics: dict = field(default_factory=dict)
+
+    def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
+        json.dumps(self.diagnostics, allow_nan=False)
+        return ({"temperature": self.temperature, "reference": self.reference},
+                {"order": self.order, "diagnostics": self.diagnostics})
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "ThermalLoad":
+        return cls(np.asarray(arrays["temperature"]), meta["order"], np.asarray(arrays["reference"]),
+                   meta["diagnostics"])
+
+    def __repr__(self) -> str:
+        t = celsius(self.temperature)
+        return (f"<ThermalLoad P{self.order} ({self.diagnostics.get('method', '?')}), {t.min():.2f} to "
+                f"{t.max():.2f} degC, stress-free {celsius(self.reference.min()):.2f} to "
+                f"{celsius(self.reference.max()):.2f} degC>")
+
+
+@dataclass(frozen=True, repr=False)
+class StressField:
+    """Linear-elastic result.
+
+    displacement: (n_dofs / 3, 3) at the displacement nodes [m] (P1: vertices; P2: vertices then edge
+    midpoints).  order: element order.  stress: (n_elements, 6) element-mean stress [Pa] in the order
+    xx, yy, zz, yz, xz, xy.  von_mises, tresca: (n_elements,) [Pa].  principal: (n_elements, 3) [Pa],
+    largest first.  parts: part -> figures (peak von Mises [Pa] with location [m], principal extremes,
+    safety factor and its criterion).  reactions: support -> force [N] (x, y, z).
+    equilibrium: sum of reactions and applied loads [N] and its size relative to the largest force.
+    probes: name -> {"displacement_m", "von_mises_Pa"}.  solver: how the system was solved.
+    """
+
+    displacement: np.ndarray
+    order: int
+    stress: np.ndarray
+    von_mises: np.ndarray
+    tresca: np.ndarray
+    principal: np.ndarray
+    parts: dict[str, dict]
+    reactions: dict[str, list[float]]
+    equilibrium: dict
+    probes: dict[str, dict]
+    solver: SolveRecord
+    notices: tuple[str, ...] = ()
+    meta: dict = field(default_factory=dict)
+
+    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal")
+
+    def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
+        meta = {"order": self.order, "parts": self.parts, "reactions": self.reactions,
+                "equilibrium": self.equilibrium, "probes": self.probes, "solver": self.solver.to_dict(),
+                "notices": list(self.notices), "meta": self.meta}
+        json.dumps(meta, allow_nan=False)
+        return {name: getattr(self, name) for name in self.ARRAYS}, meta
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "StressField":
+        solver = dict(meta["solver"])
+        solver["history"] = tuple(solver.get("history", ()))
+        return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS}, order=meta["order"], parts=meta["parts"],
+                   reactions=meta["reactions"], equilibrium=meta["equilibrium"], probes=meta["probes"],
+                   solver=SolveRecord(**solver), notices=tuple(meta["notices"]), meta=meta.get("meta", {}))
+
+    def __repr__(self) -> str:
+        umax = np.linalg.norm(self.displacement, axis=1).max()
+        return (f"<StressField P{self.order}, {len(self.displacement)} nodes, |u| max {umax * 1e3:.4g} mm, "
+                f"von Mises max {self.von_mises.max() / 1e6:.4g} MPa, {len(self.parts)} parts, "
+                f"equilibrium {self.equilibrium.get('relative', 0):.1e}>")

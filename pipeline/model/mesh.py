@@ -144,22 +144,27 @@ def load(path: str | Path, unit: str) -> Domain:
     unit: the length unit the mesh was drawn in (m, cm, mm, um, in); there is no default because a
     wrong guess is off by a factor of 1000.
     """
-    import meshio
-
     path = Path(path)
     factor = length_factor(unit, where=f"{path}: length unit")
     if not path.is_file():
         raise errors.MeshError(f"{path}: mesh file not found")
-    data = path.read_bytes()
+    m = read_meshio(path)
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    return from_meshio(m, unit=unit, factor=factor, source=str(path), source_hash=digest)
+
+
+def read_meshio(path: Path):
+    """meshio.read with its console chatter captured and every failure turned into ``MeshError``."""
+    import meshio
+
+    chatter = io.StringIO()
     try:
-        chatter = io.StringIO()
         with warnings.catch_warnings(), contextlib.redirect_stdout(chatter), contextlib.redirect_stderr(chatter):
             warnings.simplefilter("ignore")  # meshio prints and warns on harmless header details
-            m = meshio.read(path)
+            return meshio.read(path)
     except (Exception, SystemExit) as exc:  # meshio raises many types, and exits, on unreadable files
         detail = " ".join(chatter.getvalue().split()) or f"{type(exc).__name__}: {exc}"
         raise errors.MeshError(f"{path}: meshio cannot read this file ({detail})") from None
-    return from_meshio(m, unit=unit, factor=factor, source=str(path), source_hash=hashlib.sha256(data).hexdigest())
 
 
 def from_meshio(m, unit: str = "m", factor: float | None = None, source: str = "", source_hash: str = "") -> Domain:

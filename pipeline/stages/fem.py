@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .. import errors
+
 ORDERS = (1, 2)
 
 
@@ -42,3 +44,19 @@ def part_values(domain, per_part: dict[str, float], default: float = 0.0) -> np.
     for name, value in per_part.items():
         out[domain.parts[name]] = value
     return out
+
+
+def probe_points(domain, probes, where: str) -> tuple[list[str], np.ndarray]:
+    """Names and (3, n) coordinates [m] of probes; every probe outside the mesh is an ``InputError``."""
+    names = list(probes)
+    points = np.array([probes[n] for n in names], dtype=float).reshape(-1, 3).T
+    finder = domain.mesh.element_finder()
+    outside = []
+    for i, name in enumerate(names):
+        try:
+            finder(*points[:, i : i + 1])
+        except ValueError:
+            outside.append(f"{where}: probe '{name}' at {points[:, i].tolist()} m is outside the mesh")
+    if outside:
+        raise errors.InputError(outside)
+    return names, points

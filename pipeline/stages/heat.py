@@ -263,19 +263,8 @@ def _part_statistics(domain, basis, T: np.ndarray) -> dict[str, dict[str, float]
 def _probe_values(domain, basis, T, probes, where) -> dict[str, float]:
     if not probes:
         return {}
-    names = list(probes)
-    points = np.array([probes[n] for n in names], dtype=float).T
-    problems = []
-    finder = domain.mesh.element_finder()
-    for i, name in enumerate(names):
-        try:
-            finder(*points[:, i : i + 1])
-        except ValueError:
-            problems.append(f"{where}: probe '{name}' at {points[:, i].tolist()} m is outside the mesh")
-    if problems:
-        raise errors.InputError(problems)
-    values = basis.probes(points) @ T
-    return {n: float(v) for n, v in zip(names, values)}
+    names, points = fem.probe_points(domain, probes, where)
+    return {n: float(v) for n, v in zip(names, basis.probes(points) @ T)}
 
 
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:

@@ -1,0 +1,245 @@
+"""Temperature onto the structural model (the ``map`` stage): same mesh, cross mesh, or an external field.
+
+Same mesh: the heat stage's degrees of freedom are kept as they are, so the stress stage evaluates the
+temperature exactly at its own quadrature points.  Cross mesh: the structural nodes are located in the
+thermal mesh and the thermal field is interpolated there (linear interpolation within the containing
+tetrahedron keeps the values within the source's range).  External: a point cloud (VTU point data
+from another solver, or a CSV of x, y, z, T) interpolated linearly over its Delaunay tetrahedra.
+Points outside the source within ``tolerance`` take the value of the nearest source point inside and
+are counted; beyond it the stage stops naming the part and the distance.
+"""
+
+from __future__ import annotations
+
+import csv
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from .. import errors
+from ..fields import TemperatureField, ThermalLoad
+from ..model.units import ZERO_CELSIUS
+from . import fem
+
+STAGE_VERSION = 1
+CANDIDATES = 12  # nearest source tetrahedra tried per point (by centroid)
+
+
+@dataclass(frozen=True)
+class MapSpec:
+    """reference: stress-free temperature [K]; reference_by_part: part -> K (overrides the global value).
+    tolerance: largest distance [m] outside the source that takes the nearest value; None = half the
+    source's median edge length.  order: order of the mapped field for cross-mesh and external sources
+    (1: at the structural vertices)."""
+
+    reference: float = 293.15
+    reference_by_part: Mapping[str, float] = field(default_factory=dict)
+    tolerance: float | None = None
+    order: int = 1
+
+
+def _reference(domain, spec: MapSpec, where: str) -> np.ndarray:
+    problems = [errors.unknown_name("part", p, domain.parts, f"{where}.reference_by_part")
+                for p in spec.reference_by_part if p not in domain.parts]
+    values = [spec.reference, *spec.reference_by_part.values()]
+    problems += [f"{where}: stress-free temperature must be >= 0 K, got {v}" for v in values if not v >= 0]
+    if problems:
+        raise errors.InputError(problems)
+    return fem.part_values(domain, dict(spec.reference_by_part), default=spec.reference)
+
+
+def _load(domain, values: np.ndarray, order: int, spec: MapSpec, diagnostics: dict, where: str) -> ThermalLoad:
+    diagnostics = diagnostics | {"mapped_min_K": float(values.min()), "mapped_max_K": float(values.max())}
+    return ThermalLoad(values, order, _reference(domain, spec, where), diagnostics)
+
+
+def transfer(field_: TemperatureField, source_domain, target_domain, spec: MapSpec = MapSpec(),
+             where: str = "map") -> ThermalLoad:
+    """Temperature of a heat result on ``source_domain`` as a load on ``target_domain``."""
+    base = {"source_min_K": float(field_.temperature.min()), "source_max_K": float(field_.temperature.max())}
+    if _same_mesh(source_domain, target_domain):
+        return _load(target_domain, field_.temperature.copy(), field_.order, spec,
+                     base | {"method": "same mesh", "outside": 0, "max_distance_m": 0.0}, where)
+    points = fem.cell_basis(target_domain, spec.order).doflocs.T
+    values, outside, distance = _interpolate_on_mesh(source_domain, field_, points, spec, target_domain, where)
+    return _load(target_domain, values, spec.order, spec,
+                 base | {"method": "cross mesh", "outside": outside, "max_distance_m": distance}, where)
+
+
+def from_function(domain, temperature: Callable, spec: MapSpec = MapSpec(), order: int = 2,
+                  where: str = "map") -> ThermalLoad:
+    """A load from a temperature given as a function of x (shape (3, n), m) -> K, e.g. a benchmark field."""
+    values = np.asarray(temperature(fem.cell_basis(domain, order).doflocs), dtype=float)
+    return _load(domain, values, order, spec, {"method": "function", "outside": 0, "max_distance_m": 0.0}, where)
+
+
+def from_file(path: str | Path, domain, spec: MapSpec = MapSpec(), array: str | None = None,
+              unit: str = "m", temperature_unit: str = "K", where: str = "map") -> ThermalLoad:
+    """A load from an external field file: VTU point data (``array`` names it) or a CSV with columns
+    x, y, z, T (a header row is skipped).  unit: length unit of the file's coordinates;
+    temperature_unit: "K" or "degC"."""
+    from ..model.units import length_factor
+
+    path = Path(path)
+    factor = length_factor(unit, where=f"{path}: length unit")
+    if temperature_unit not in ("K", "degC"):
+        raise errors.InputError(f"{where}: temperature_unit must be 'K' or 'degC', got {temperature_unit!r}")
+    points, values = _read_point_field(path, array)
+    points = points * factor
+    if temperature_unit == "degC":
+        values = values + ZERO_CELSIUS
+    targets = fem.cell_basis(domain, spec.order).doflocs.T
+    mapped, outside, distance = _interpolate_cloud(points, values, targets, spec, domain, where, path)
+    return _load(domain, mapped, spec.order, spec,
+                 {"method": "external file", "file": str(path), "source_min_K": float(values.min()),
+                  "source_max_K": float(values.max()), "outside": outside, "max_distance_m": distance}, where)
+
+
+def _same_mesh(a, b) -> bool:
+    return a is b or (a.points.shape == b.points.shape and a.tetrahedra.shape == b.tetrahedra.shape
+                      and np.array_equal(a.tetrahedra, b.tetrahedra) and np.allclose(a.points, b.points, atol=0))
+
+
+def _interpolate_on_mesh(source, field_, points, spec, target, where):
+    """Evaluate the P1/P2 heat field at ``points`` (n, 3) [m]; returns values, outside count, max distance."""
+    cells, bary, distance = _locate(source.points, source.tetrahedra, points)
+    tolerance = spec.tolerance if spec.tolerance is not None else _default_tolerance(source)
+    _refuse_far(distance, tolerance, points, target, where)
+    basis = fem.cell_basis(source, field_.order)
+    phi = lagrange(field_.order, bary)  # (n, n_local)
+    values = np.einsum("nl,ln->n", phi, field_.temperature[basis.element_dofs[:, cells]])
+    outside = int((distance > 0).sum())
+    return values, outside, float(distance.max(initial=0.0))
+
+
+def lagrange(order: int, bary: np.ndarray) -> np.ndarray:
+    """Lagrange shape functions of a tetrahedron at barycentric coordinates (n, 4), in scikit-fem's
+    local order (vertices, then edges 01, 12, 02, 03, 13, 23)."""
+    if order == 1:
+        return bary
+    edges = ((0, 1), (1, 2), (0, 2), (0, 3), (1, 3), (2, 3))
+    return np.column_stack([bary * (2 * bary - 1)] + [4 * bary[:, a] * bary[:, b] for a, b in edges])
+
+
+def _locate(points_src, tets, x):
+    """Containing tetrahedron and barycentric coordinates of each point; points outside get the
+    nearest point of a nearby tetrahedron (clamped coordinates) and their distance to it [m].
+    Candidates are the tetrahedra with the nearest centroids, widened until each point is found."""
+    corners = points_src[tets]  # (m, 4, 3)
+    tree = cKDTree(corners.mean(axis=1))
+    cell = np.full(len(x), -1)
+    bary = np.zeros((len(x), 4))
+    dist = np.full(len(x), np.inf)
+    todo = np.arange(len(x))
+    k = CANDIDATES
+    while len(todo):
+        k = min(k, len(tets))
+        _, cand = tree.query(x[todo], k=k)
+        cand = cand.reshape(len(todo), k)
+        for j in range(k):
+            c = cand[:, j]
+            lam = _barycentric(corners[c], x[todo])
+            clamped = np.clip(lam, 0.0, None)
+            clamped /= clamped.sum(axis=1, keepdims=True)
+            d = np.linalg.norm(np.einsum("ni,nij->nj", clamped, corners[c]) - x[todo], axis=1)
+            d[lam.min(axis=1) >= -1e-10] = 0.0
+            better = d < dist[todo]
+            cell[todo[better]], bary[todo[better]], dist[todo[better]] = c[better], clamped[better], d[better]
+        if k == len(tets) or k >= 8 * CANDIDATES:
+            break
+        todo = todo[dist[todo] > 0]  # not found inside yet: look further
+        k *= 2
+    return cell, bary, dist
+
+
+def _barycentric(corners, x):
+    """Barycentric coordinates of x (n, 3) in tetrahedra with corners (n, 4, 3)."""
+    t = np.transpose(corners[:, 1:] - corners[:, :1], (0, 2, 1))  # (n, 3, 3)
+    rest = np.linalg.solve(t, (x - corners[:, 0])[:, :, None])[:, :, 0]
+    return np.column_stack([1.0 - rest.sum(axis=1), rest])
+
+
+def _default_tolerance(domain) -> float:
+    e = domain.points[domain.tetrahedra[:, 1]] - domain.points[domain.tetrahedra[:, 0]]
+    return 0.5 * float(np.median(np.linalg.norm(e, axis=1)))
+
+
+def _refuse_far(distance, tolerance, points, target, where, source_name="the thermal mesh"):
+    far = distance > tolerance
+    if not far.any():
+        return
+    tree = cKDTree(target.points)
+    _, node = tree.query(points[far])
+    part_of = target.part_ids()
+    names = sorted(target.parts)
+    node_part = {}
+    for i, name in enumerate(names):
+        node_part.update({int(n): name for n in np.unique(target.tetrahedra[part_of == i])})
+    parts = sorted({node_part.get(int(n), "?") for n in node}) or ["?"]
+    raise errors.InputError(
+        f"{where}: {int(far.sum())} structural points lie outside {source_name} by up to "
+        f"{distance.max() * 1e3:.4g} mm (tolerance {tolerance * 1e3:.4g} mm), in parts {', '.join(parts)}; "
+        "check that both meshes use the same length unit and position, or raise the tolerance"
+    )
+
+
+def _read_point_field(path: Path, array: str | None) -> tuple[np.ndarray, np.ndarray]:
+    if not path.is_file():
+        raise errors.InputError(f"{path}: temperature field file not found")
+    if path.suffix.lower() == ".csv":
+        return _read_csv(path)
+    from ..model.mesh import read_meshio
+
+    m = read_meshio(path)
+    if not m.point_data:
+        raise errors.InputError(f"{path}: the file has no point data to read temperatures from")
+    if array is None:
+        if len(m.point_data) != 1:
+            raise errors.InputError(f"{path}: name the temperature array; arrays there are: "
+                                    f"{', '.join(sorted(m.point_data))}")
+        array = next(iter(m.point_data))
+    if array not in m.point_data:
+        raise errors.InputError(errors.unknown_name("point array", array, m.point_data, str(path)))
+    values = np.asarray(m.point_data[array], dtype=float)
+    if values.ndim != 1:
+        raise errors.InputError(f"{path}: array '{array}' has {values.shape[1]} components; a temperature has 1")
+    return np.asarray(m.points, dtype=float)[:, :3], values
+
+
+def _read_csv(path: Path) -> tuple[np.ndarray, np.ndarray]:
+    rows = []
+    with path.open(newline="", encoding="utf-8") as f:
+        for n, row in enumerate(csv.reader(f), start=1):
+            if not row or row[0].lstrip().startswith("#"):
+                continue
+            try:
+                rows.append([float(v) for v in row[:4]])
+            except ValueError:
+                if rows:
+                    raise errors.InputError(f"{path}:{n}: expected four numbers x, y, z, T, got {row}") from None
+                continue  # header
+            if len(rows[-1]) != 4:
+                raise errors.InputError(f"{path}:{n}: expected four columns x, y, z, T, got {len(row)}")
+    if len(rows) < 4:
+        raise errors.InputError(f"{path}: needs at least 4 points with x, y, z, T")
+    data = np.array(rows)
+    return data[:, :3], data[:, 3]
+
+
+def _interpolate_cloud(points, values, targets, spec, domain, where, path):
+    from scipy.spatial import Delaunay
+
+    try:
+        tri = Delaunay(points)
+    except Exception as exc:  # qhull refuses flat or degenerate clouds
+        raise errors.InputError(f"{path}: the points do not span a volume ({exc.__class__.__name__})") from None
+    tets = tri.simplices
+    cells, bary, distance = _locate(points, tets, targets)
+    tolerance = spec.tolerance if spec.tolerance is not None else 0.5 * float(
+        np.median(np.linalg.norm(points[tets[:, 1]] - points[tets[:, 0]], axis=1)))
+    _refuse_far(distance, tolerance, targets, domain, where, source_name=str(path))
+    mapped = np.einsum("ni,ni->n", bary, values[tets[cells]])
+    return mapped, int((distance > 0).sum()), float(distance.max(initial=0.0))
