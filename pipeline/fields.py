@@ -127,6 +127,8 @@ class StressField:
     safety factor and its criterion).  reactions: support -> force [N] (x, y, z).
     equilibrium: sum of reactions and applied loads [N] and its size relative to the largest force.
     probes: name -> {"displacement_m", "von_mises_Pa"}.  solver: how the system was solved.
+    nodal: part -> (point ids, (n, 6) stress [Pa]): the L2 projection within the part; point ids number
+    the vertices first, then (P2) the edge midpoints, as ``displacement`` does.
     """
 
     displacement: np.ndarray
@@ -140,25 +142,40 @@ class StressField:
     equilibrium: dict
     probes: dict[str, dict]
     solver: SolveRecord
+    nodal: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
     notices: tuple[str, ...] = ()
     meta: dict = field(default_factory=dict)
 
     ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal")
 
+    def nodal_stress(self, part: str, point: int) -> np.ndarray:
+        """Projected stress (6,) [Pa] of ``part`` at a point (vertex id, or P2 edge point)."""
+        ids, values = self.nodal[part]
+        where = np.flatnonzero(ids == point)
+        if not len(where):
+            raise KeyError(f"point {point} is not in part '{part}'")
+        return values[where[0]]
+
     def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
         meta = {"order": self.order, "parts": self.parts, "reactions": self.reactions,
                 "equilibrium": self.equilibrium, "probes": self.probes, "solver": self.solver.to_dict(),
-                "notices": list(self.notices), "meta": self.meta}
+                "notices": list(self.notices), "meta": self.meta, "nodal_parts": sorted(self.nodal)}
         json.dumps(meta, allow_nan=False)
-        return {name: getattr(self, name) for name in self.ARRAYS}, meta
+        arrays = {name: getattr(self, name) for name in self.ARRAYS}
+        for i, part in enumerate(sorted(self.nodal)):
+            arrays[f"nodal_points_{i}"], arrays[f"nodal_stress_{i}"] = self.nodal[part]
+        return arrays, meta
 
     @classmethod
     def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "StressField":
         solver = dict(meta["solver"])
         solver["history"] = tuple(solver.get("history", ()))
+        nodal = {p: (np.asarray(arrays[f"nodal_points_{i}"]), np.asarray(arrays[f"nodal_stress_{i}"]))
+                 for i, p in enumerate(meta.get("nodal_parts", []))}
         return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS}, order=meta["order"], parts=meta["parts"],
                    reactions=meta["reactions"], equilibrium=meta["equilibrium"], probes=meta["probes"],
-                   solver=SolveRecord(**solver), notices=tuple(meta["notices"]), meta=meta.get("meta", {}))
+                   solver=SolveRecord(**solver), nodal=nodal, notices=tuple(meta["notices"]),
+                   meta=meta.get("meta", {}))
 
     def __repr__(self) -> str:
         umax = np.linalg.norm(self.displacement, axis=1).max()

@@ -66,10 +66,10 @@ def nodal_stress(model: PartModel, sigma: np.ndarray, order: int) -> tuple[np.nd
 
 
 def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int):
-    """Per-part figures and per-element arrays (stress, von_mises, tresca, principal)."""
+    """Per-part figures, per-element arrays (stress, von_mises, tresca, principal) and nodal stresses."""
     nel = len(domain.tetrahedra)
     elements = {"stress": np.zeros((nel, 6))}
-    parts = {}
+    parts, nodal_by_part = {}, {}
     for part, model in models.items():
         sigma = stress_at_points(model, u)
         dx = model.basis.dx
@@ -78,11 +78,12 @@ def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int):
         dofs, nodal = nodal_stress(model, sigma, order)
         where = model.basis.with_element(fem.element(order)).doflocs[:, dofs].T
         parts[part] = _figures(model.material, nodal, where, sigma)
+        nodal_by_part[part] = (dofs, nodal.T)
     s = elements["stress"].T
     elements["von_mises"] = constitutive.von_mises(s)
     elements["principal"] = constitutive.principal(s)
     elements["tresca"] = elements["principal"][:, 0] - elements["principal"][:, 2]
-    return parts, elements
+    return parts, elements, nodal_by_part
 
 
 def _figures(material, nodal: np.ndarray, where: np.ndarray, sigma_qp: np.ndarray) -> dict:

@@ -189,12 +189,12 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     applied = [float(f_mech[pdofs[:, i]].sum()) for i in range(3)]
     equilibrium = _equilibrium(reactions, applied, float(np.abs(f_thermal + f_mech).max(initial=0.0)))
 
-    parts, elements = recovery.recover(domain, per_part, u, spec.order)
+    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order)
     probes = _probes(domain, full, u, elements["von_mises"], spec.probes, where)
     return StressField(
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], parts=parts, reactions=reactions,
-        equilibrium=equilibrium, probes=probes, solver=record, notices=tuple(domain.notices),
+        equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
               "stress_order": "xx, yy, zz, yz, xz, xy"},
     )
