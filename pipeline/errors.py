@@ -41,8 +41,10 @@ class SolverError(ThermochainError):
 
 def closest(name: str, valid: Iterable[str]) -> str:
     """A hint naming the valid choice closest to ``name`` (empty when nothing is close)."""
-    match = difflib.get_close_matches(name, list(valid), n=1, cutoff=0.5)
-    return f" (did you mean '{match[0]}'?)" if match else ""
+    valid = list(valid)
+    lowered = {v.lower(): v for v in valid}
+    match = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.5)
+    return f" (did you mean '{lowered[match[0]]}'?)" if match else ""
 
 
 def unknown_name(kind: str, name: str, valid: Iterable[str], where: str) -> str:

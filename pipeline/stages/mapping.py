@@ -236,7 +236,11 @@ def _interpolate_cloud(points, values, targets, spec, domain, where, path):
         tri = Delaunay(points)
     except Exception as exc:  # qhull refuses flat or degenerate clouds
         raise errors.InputError(f"{path}: the points do not span a volume ({exc.__class__.__name__})") from None
+    from ..model.mesh import signed_volumes
+
     tets = tri.simplices
+    edge = np.linalg.norm(points[tets[:, 1]] - points[tets[:, 0]], axis=1)
+    tets = tets[np.abs(signed_volumes(points, tets)) > 1e-9 * np.median(edge) ** 3]  # qhull's flat slivers
     cells, bary, distance = _locate(points, tets, targets)
     tolerance = spec.tolerance if spec.tolerance is not None else 0.5 * float(
         np.median(np.linalg.norm(points[tets[:, 1]] - points[tets[:, 0]], axis=1)))

@@ -1,0 +1,156 @@
+"""The map stage: same mesh, cross mesh, external files, stress-free temperatures, interfaces."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from skfem import MeshTet
+
+import meshes
+from pipeline import errors
+from pipeline.model import mesh as mesh_mod
+from pipeline.model.materials import from_record
+from pipeline.stages import heat, mapping, stress
+from pipeline.stages.supports import Support
+
+
+def solid(k=100.0, e=70e9, nu=0.3, alpha=2e-5, name="m"):
+    return from_record(name, {"conductivity": k, "youngs_modulus": e, "poisson_ratio": nu, "expansion": alpha,
+                              "density": 2700.0, "yield_strength": 200e6}, "test")
+
+
+def block(n=5, jitter=0.25, seed=0, shift=(0.0, 0.0, 0.0), parts=None):
+    m = meshes.tensor(*[np.linspace(0, 0.02, n)] * 3, jitter=jitter, seed=seed)
+    m = MeshTet(m.p + np.asarray(shift)[:, None], m.t)
+    return mesh_mod.from_meshio(meshes.to_meshio(m, parts(m) if parts else None), unit="m")
+
+
+def heated(d, order=1, generation=0.0):
+    spec = heat.HeatSpec({p: solid() for p in d.parts}, fixed_temperature={"xmin": 400.0, "xmax": 300.0},
+                         generation={p: generation for p in d.parts} if generation else {}, order=order)
+    return heat.solve(d, spec)
+
+
+def test_same_mesh_keeps_the_heat_stage_field_exactly():
+    d = block()
+    for order in (1, 2):
+        t = heated(d, order)
+        load = mapping.transfer(t, d, d, mapping.MapSpec(reference=300.0))
+        assert load.order == order and load.diagnostics["method"] == "same mesh"
+        np.testing.assert_array_equal(load.temperature, t.temperature)
+        assert np.all(load.reference == 300.0)
+
+
+def test_cross_mesh_reproduces_a_linear_field_and_the_same_stress():
+    """A linear temperature is reproduced exactly by linear interpolation, so the stress computed on the
+    structural mesh from the cross-mesh map equals the one from a heat solve on that mesh itself."""
+    thermal, structural = block(n=4, seed=1), block(n=6, seed=2)
+    load = mapping.transfer(heated(thermal), thermal, structural, mapping.MapSpec(reference=300.0))
+    assert load.diagnostics["method"] == "cross mesh" and load.diagnostics["outside"] == 0
+    own = mapping.transfer(heated(structural), structural, structural, mapping.MapSpec(reference=300.0))
+    spec = stress.StressSpec({"body": solid()}, {"free": Support("minimal")}, order=2)
+    a, b = stress.solve(structural, load, spec), stress.solve(structural, own, spec)
+    np.testing.assert_allclose(a.displacement, b.displacement, atol=1e-14)
+
+
+def test_cross_mesh_values_stay_within_the_source_range():
+    thermal, structural = block(n=4, seed=3), block(n=7, seed=4)
+    source = heated(thermal, generation=5e8)
+    load = mapping.transfer(source, thermal, structural)
+    assert source.temperature.max() > 420.0  # the generation makes an interior peak
+    assert load.temperature.min() >= source.temperature.min() - 1e-12
+    assert load.temperature.max() <= source.temperature.max() + 1e-12
+    # and it converges to the source field: at a point inside, both agree to interpolation accuracy
+    assert load.diagnostics["mapped_max_K"] == pytest.approx(source.temperature.max(), rel=0.02)
+
+
+def test_structural_model_may_omit_a_part():
+    halves = lambda m: meshes.layers(m, 2, {"board": (0, 0.01), "pad": (0.01, 0.02)})  # noqa: E731
+    thermal = block(n=5, jitter=0.0, parts=halves)
+    board = mesh_mod.from_meshio(meshes.to_meshio(*_only_board(thermal)), unit="m")
+    load = mapping.transfer(heated(thermal), thermal, board)
+    assert load.diagnostics["outside"] == 0
+    assert len(load.temperature) == len(board.points)
+
+
+def _only_board(d):
+    ids = d.parts["board"]
+    used = np.unique(d.tetrahedra[ids])
+    renumber = np.full(len(d.points), -1)
+    renumber[used] = np.arange(len(used))
+    m = MeshTet(d.points[used].T.copy(), renumber[d.tetrahedra[ids]].T.copy())
+    return (m,)
+
+
+def test_points_slightly_outside_take_the_nearest_value_and_are_counted():
+    thermal = block(n=4, jitter=0.0)
+    structural = block(n=4, jitter=0.0, shift=(2e-5, 0.0, 0.0))
+    load = mapping.transfer(heated(thermal), thermal, structural)
+    assert load.diagnostics["outside"] > 0
+    assert load.diagnostics["max_distance_m"] == pytest.approx(2e-5, rel=1e-6)
+
+
+def test_points_far_outside_stop_the_stage_naming_part_and_distance():
+    thermal = block(n=4, jitter=0.0)
+    structural = block(n=4, jitter=0.0, shift=(0.01, 0.0, 0.0))
+    with pytest.raises(errors.InputError, match=r"outside the thermal mesh by up to 10 mm .* in parts body"):
+        mapping.transfer(heated(thermal), thermal, structural)
+
+
+def test_external_csv_and_vtu_fields(tmp_path):
+    import meshio
+
+    d = block(n=4)
+    field = lambda x: 290.0 + 1000.0 * x[0] + 500.0 * x[2]  # noqa: E731  (K, x in m)
+    cloud = meshes.tensor(*[np.linspace(-0.001, 0.021, 6)] * 3).p.T
+    csv = tmp_path / "measured.csv"
+    rows = ["x_mm,y_mm,z_mm,T_degC"] + [f"{x * 1e3},{y * 1e3},{z * 1e3},{field((x, y, z)) - 273.15}"
+                                        for x, y, z in cloud]
+    csv.write_text("\n".join(rows) + "\n")
+    load = mapping.from_file(csv, d, unit="mm", temperature_unit="degC")
+    np.testing.assert_allclose(load.temperature, field(d.points.T), rtol=1e-10)
+    assert load.diagnostics["method"] == "external file"
+
+    vtu = tmp_path / "other_solver.vtu"
+    m = meshes.tensor(*[np.linspace(-0.001, 0.021, 5)] * 3)
+    meshio.write(vtu, meshio.Mesh(m.p.T, [("tetra", m.t.T)],
+                                  point_data={"T": field(m.p), "flux": np.zeros((m.nvertices, 3))}))
+    np.testing.assert_allclose(mapping.from_file(vtu, d, array="T").temperature, field(d.points.T), rtol=1e-10)
+    with pytest.raises(errors.InputError, match="name the temperature array; arrays there are: T, flux"):
+        mapping.from_file(vtu, d)
+    with pytest.raises(errors.InputError, match="did you mean 'T'"):
+        mapping.from_file(vtu, d, array="t")
+    with pytest.raises(errors.InputError, match="has 3 components"):
+        mapping.from_file(vtu, d, array="flux")
+
+
+def test_bonded_parts_keep_their_own_expansion_and_stress_free_temperature():
+    """Nothing is averaged across an interface: two layers in series along x, every face held normally,
+    under a uniform temperature with a different stress-free temperature per part (an assembly
+    temperature). The exact solution is uniaxial strain in each layer: sigma_xx = M_i eps_i - b_i is the
+    same in both (equilibrium) and sum L_i eps_i = 0 (the faces are held), with M = lambda + 2 mu and
+    b = (3 lambda + 2 mu) alpha dT; sigma_yy = sigma_zz = lambda_i eps_i - b_i (stress-strain relations
+    with thermal strain, Timoshenko and Goodier, Theory of Elasticity, 3rd ed., ch. 13; the layered
+    solution derived here). Displacement is piecewise linear with the interface on element faces, so P2
+    reproduces it to round-off, also in the elements that touch the interface."""
+    halves = lambda m: meshes.layers(m, 0, {"copper": (0, 0.01), "ceramic": (0.01, 0.02)})  # noqa: E731
+    d = block(n=5, jitter=0.0, parts=halves)
+    mats = {"copper": solid(e=117e9, nu=0.33, alpha=17e-6, name="cu"),
+            "ceramic": solid(e=300e9, nu=0.22, alpha=7e-6, name="al2o3")}
+    spec = mapping.MapSpec(reference=293.15, reference_by_part={"ceramic": 323.15})
+    load = mapping.from_function(d, lambda x: 373.15 + 0 * x[0], spec, order=1)
+    sup = {f: Support("symmetry") for f in meshes.FACES}
+    f = stress.solve(d, load, stress.StressSpec(mats, sup, order=2))
+    lame = {}
+    for part, dt in (("copper", 80.0), ("ceramic", 50.0)):
+        e, nu, a = mats[part].youngs_modulus[0], mats[part].poisson_ratio[0], mats[part].expansion[0]
+        lam, mu = e * nu / ((1 + nu) * (1 - 2 * nu)), e / (2 * (1 + nu))
+        lame[part] = (lam, lam + 2 * mu, (3 * lam + 2 * mu) * a * dt)
+    sxx = -sum(b / m for _, m, b in lame.values()) / sum(1 / m for _, m, _ in lame.values())  # equal lengths
+    for part, (lam, m, b) in lame.items():
+        eps = (sxx + b) / m
+        np.testing.assert_allclose(f.stress[d.parts[part], 0], sxx, rtol=1e-9)
+        np.testing.assert_allclose(f.stress[d.parts[part], 1:3], lam * eps - b, rtol=1e-9)
+    assert abs(f.stress[d.parts["copper"], 1].mean() - f.stress[d.parts["ceramic"], 1].mean()) > 1e7
+    with pytest.raises(errors.InputError, match="did you mean 'copper'"):
+        mapping.from_function(d, lambda x: 0 * x[0] + 300.0, mapping.MapSpec(reference_by_part={"coper": 300.0}))
