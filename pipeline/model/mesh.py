@@ -82,6 +82,23 @@ class Domain:
             raise errors.MeshError(errors.unknown_name("surface", name, self.surfaces, where or self.source))
         return self.surfaces[name]
 
+    @property
+    def bodies(self) -> tuple[int, np.ndarray]:
+        """Connected bodies (parts joined through shared nodes): their count and each node's body."""
+        if "bodies" not in self._cache:
+            from scipy.sparse import coo_matrix
+            from scipy.sparse.csgraph import connected_components
+
+            t, n = self.tetrahedra, len(self.points)
+            graph = coo_matrix((np.ones(3 * len(t)), (np.repeat(t[:, 0], 3), t[:, 1:].ravel())), shape=(n, n))
+            self._cache["bodies"] = connected_components(graph, directed=False)
+        return self._cache["bodies"]
+
+    def body_parts(self, body: int) -> list[str]:
+        """Names of the parts that make up one body."""
+        label = self.bodies[1]
+        return sorted(p for p, ids in self.parts.items() if np.any(label[self.tetrahedra[ids, 0]] == body))
+
     def part_ids(self) -> np.ndarray:
         """Index of each element's part in ``sorted(parts)`` order (for output and per-part data)."""
         ids = np.full(len(self.tetrahedra), -1, dtype=np.int32)

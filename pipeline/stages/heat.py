@@ -13,8 +13,6 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.sparse as sp
-from scipy.sparse.csgraph import connected_components
 from skfem import BilinearForm, Functional, LinearForm, asm
 from skfem.helpers import dot, grad, mul
 
@@ -220,19 +218,14 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
 
 def _check_heat_can_leave(domain, spec: HeatSpec, where: str) -> None:
     """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
-    tets = domain.tetrahedra
-    n = len(domain.points)
-    rows = np.repeat(tets[:, 0], 3)
-    cols = tets[:, 1:].ravel()
-    graph = sp.coo_matrix((np.ones(len(rows)), (rows, cols)), shape=(n, n))
-    count, label = connected_components(graph, directed=False)
+    count, label = domain.bodies
     sinks = list(spec.convection) + list(spec.fixed_temperature)
     reached = np.zeros(count, dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
     problems = []
     for c in np.flatnonzero(~reached):
-        parts = sorted({p for p, ids in domain.parts.items() if np.any(label[tets[ids, 0]] == c)})
+        parts = domain.body_parts(c)
         heated = [p for p in parts if spec.power.get(p, 0) or spec.generation.get(p, 0)]
         if heated:
             problems.append(

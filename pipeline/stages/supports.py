@@ -16,7 +16,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.csgraph import connected_components
 
 from .. import errors
 
@@ -109,10 +108,7 @@ def gather(domain, basis, supports: Mapping[str, Support], where: str):
 
 def _minimal(domain, xyz):
     """3-2-1 constraints for every connected body, on its vertices."""
-    tets = domain.tetrahedra
-    n = len(domain.points)
-    graph = sp.coo_matrix((np.ones(3 * len(tets)), (np.repeat(tets[:, 0], 3), tets[:, 1:].ravel())), shape=(n, n))
-    count, label = connected_components(graph, directed=False)
+    count, label = domain.bodies
     out = []
     for c in range(count):
         nodes = np.flatnonzero(label == c)
@@ -172,10 +168,8 @@ def build(rows, pdofs, n_dofs: int, where: str) -> Constraints:
 
 def free_motions(domain, rows, xyz, spring_points: np.ndarray, where: str) -> None:
     """Refuse a body whose supports leave rigid-body motion free; name the body and the motions."""
-    tets = domain.tetrahedra
+    count, label = domain.bodies
     n = len(domain.points)
-    graph = sp.coo_matrix((np.ones(3 * len(tets)), (np.repeat(tets[:, 0], 3), tets[:, 1:].ravel())), shape=(n, n))
-    count, label = connected_components(graph, directed=False)
     # map displacement points to bodies: vertices directly, edge points by their nearest vertex's body
     point_body = np.empty(len(xyz), dtype=np.int64)
     point_body[:n] = label
@@ -206,7 +200,7 @@ def free_motions(domain, rows, xyz, spring_points: np.ndarray, where: str) -> No
             _, _, vt = np.linalg.svd(m if len(m) else np.zeros((1, 6)))
             null = vt[rank:]
             motions = [MOTIONS[k] for k in range(6) if np.linalg.norm(null[:, k]) > 0.3]
-            parts = sorted({p for p, ids in domain.parts.items() if np.any(label[tets[ids, 0]] == c)})
+            parts = domain.body_parts(c)
             problems.append(
                 f"{where}: the body made of parts {', '.join(parts)} is free to move ({6 - rank} rigid-body "
                 f"motions: {', '.join(motions) or 'a combined motion'}); add supports, or use the minimal "
