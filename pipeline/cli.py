@@ -19,12 +19,22 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"thermochain {__version__}")
     p.add_argument("--debug", action="store_true", help="show tracebacks")
     p.add_argument("-q", "--quiet", action="store_true", help="only errors")
+    p.add_argument("-v", "--verbose", action="store_true", help="progress of every stage on stderr")
     sub = p.add_subparsers(dest="command", required=True)
-    run = sub.add_parser("run", help="run a workflow and write its results folder")
-    run.add_argument("workflow")
-    run.add_argument("--out", help="results folder (default: the workflow's output.folder)")
-    check = sub.add_parser("check", help="validate a workflow and its mesh without solving")
-    check.add_argument("workflow")
+    for name, text in (("run", "run a workflow (reusing unchanged stages) and write its results folder"),
+                       ("check", "validate a workflow and its mesh without solving; print the plan")):
+        cmd = sub.add_parser(name, help=text)
+        cmd.add_argument("workflow")
+        cmd.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                         help="override a value by its key path, e.g. stages.heat.power.chip=3.0")
+        cmd.add_argument("--rerun", action="append", default=[], metavar="STAGE", help="compute STAGE even if stored")
+        cmd.add_argument("--out", help="results folder (default: the workflow's output.folder)")
+        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or "
+                                         ".thermochain-store beside the workflow)")
+    sub.add_parser("schema", help="print the JSON Schema of workflow files")
+    st = sub.add_parser("store", help="list the stage store's entries, or remove old ones")
+    st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE or .thermochain-store)")
+    st.add_argument("--clean", type=float, metavar="DAYS", help="remove entries not used for DAYS days")
     mats = sub.add_parser("materials", help="list the material library with units and sources")
     mats.add_argument("name", nargs="?", help="show one material in full")
     mats.add_argument("--file", help="a materials TOML file to add to the library")
@@ -36,7 +46,8 @@ def _parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
-    logging.basicConfig(level=logging.ERROR if args.quiet else logging.WARNING,
+    level = logging.ERROR if args.quiet else logging.INFO if args.verbose else logging.WARNING
+    logging.basicConfig(level=level,
                         format="%(levelname)s: %(message)s", stream=sys.stderr)
     try:
         return COMMANDS[args.command](args)
@@ -56,7 +67,7 @@ def main(argv: list[str] | None = None) -> int:
 def _run(args) -> int:
     from .flow import runner
 
-    record = runner.run(args.workflow, args.out)
+    record = runner.run(args.workflow, args.set, args.store, args.out, args.rerun)
     if not args.quiet:
         _print_run(record)
     return 0
@@ -65,11 +76,44 @@ def _run(args) -> int:
 def _check(args) -> int:
     from .flow import runner
 
-    model = runner.check(args.workflow)
+    plan, decisions = runner.check(args.workflow, args.set, args.store, args.out, args.rerun)
     if not args.quiet:
-        print(model.domain.describe())
-        for name, stage in model.workflow.stages.items():
-            print(f"stage {name} ({stage.kind}, P{stage.order}): inputs valid")
+        print(plan.domain.describe())
+        print(f"store: {plan.store.root}")
+        for s in plan.stages:
+            reuse, reason = decisions[s.name]
+            reads = f", reads {s.source}" if s.source else ""
+            print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
+    return 0
+
+
+def _schema(args) -> int:
+    import json
+
+    from .flow import workflow
+
+    print(json.dumps(workflow.schema(), indent=2))
+    return 0
+
+
+def _store(args) -> int:
+    import os
+    import time
+    from pathlib import Path
+
+    from .flow import store
+
+    root = Path(args.folder or os.environ.get(store.ENV) or ".thermochain-store")
+    s = store.Store(root)
+    if args.clean is not None:
+        removed = s.clean(args.clean)
+        print(f"removed {len(removed)} entries from {root}")
+        return 0
+    entries = s.entries()
+    for e in entries:
+        age = (time.time() - e.last_used) / 86400
+        print(f"{e.kind:<7} {e.key[:16]}  {e.size / 1e6:9.3f} MB  last used {age:6.1f} days ago")
+    print(f"{len(entries)} entries, {sum(e.size for e in entries) / 1e6:.3f} MB in {root}")
     return 0
 
 
@@ -124,18 +168,28 @@ def _fmt(value) -> str:
 def _print_run(record: dict) -> None:
     print(f"thermochain {record['thermochain']}: {record['workflow']} ({record['status']}, {record['seconds']:.1f} s)")
     for name, stage in record["stages"].items():
-        print(f"stage {name}: {stage['status']} ({stage['reason']})")
+        print(f"stage {name} ({stage['kind']}): {stage['status']} - {stage['reason']}")
+        for part, f in stage.get("parts", {}).items():
+            sf = f["safety_factor"]
+            print(f"  {part:<16} von Mises max {f['von_mises_max_Pa'] / 1e6:9.2f} MPa at "
+                  f"{[round(c * 1e3, 2) for c in f['von_mises_max_at_m']]} mm; safety factor "
+                  f"{'n/a' if sf is None else f'{sf:.2f}'} ({f['criterion'].split(':')[0]})")
+        if "equilibrium" in stage:
+            print(f"  reactions {', '.join(f'{k} {[round(v, 3) for v in r]} N' for k, r in stage['reactions_N'].items())};"
+                  f" equilibrium {stage['equilibrium']['relative']:.1e}")
         for part, s in stage.get("parts_degC", {}).items():
             print(f"  {part:<16} min {s['min']:8.2f}  mean {s['mean']:8.2f}  max {s['max']:8.2f} degC")
         for probe, t in stage.get("probes_degC", {}).items():
             print(f"  probe {probe:<10} {t:8.2f} degC")
         for r in stage.get("heat_balance_W", []):
             print(f"  {r['kind']:<18} {r['name']:<16} {r['heat_in_W']:+10.4f} W")
-        print(f"  relative imbalance {stage.get('relative_imbalance', 0):.1e}; "
-              f"adiabatic: {', '.join(stage.get('adiabatic_surfaces', [])) or 'none'}")
+        if "relative_imbalance" in stage:
+            print(f"  relative imbalance {stage['relative_imbalance']:.1e}; "
+                  f"adiabatic: {', '.join(stage['adiabatic_surfaces']) or 'none'}")
         for note in stage.get("notices", []):
             print(f"  note: {note}")
     print("Caution: " + record["caution"])
 
 
-COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh}
+COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh, "schema": _schema,
+            "store": _store}

@@ -1,7 +1,7 @@
 """One exception family per kind of failure; the command line turns them into messages and exit codes.
 
-``InputError`` and ``MeshError`` (bad input) give exit status 2; ``PhysicsError`` and ``SolverError``
-(a run that cannot succeed) give exit status 1.  Each carries a list of problems so that every input
+``InputError`` and ``MeshError`` (bad input) give exit status 2; ``PhysicsError``, ``SolverError`` and
+``StoreError`` (a run that cannot succeed) give exit status 1.  Each carries a list of problems so that every input
 error is reported at once, not only the first.
 """
 
@@ -37,6 +37,10 @@ class PhysicsError(ThermochainError):
 
 class SolverError(ThermochainError):
     """A linear or nonlinear solve failed."""
+
+
+class StoreError(ThermochainError):
+    """The stage store cannot be written or locked (a failed run; earlier entries stay intact)."""
 
 
 def closest(name: str, valid: Iterable[str]) -> str:

@@ -1,144 +1,354 @@
-"""Run a workflow: load the model once, run its stages in order, write the results folder.
+"""Run a workflow: plan the stages in dependency order, reuse what the store holds, compute the rest.
 
-The runner wires model, stages and outputs together; it holds no physics.  (The stage store that
-reuses unchanged stages arrives with the store; until then every run computes every stage, and
-summary.json says so.)
+The runner wires model, stages, store and outputs together; it holds no physics.  Every decision has
+a reason a user can read before the run (``check``) and after it (``summary.json``).
 """
 
 from __future__ import annotations
 
+import json
 import logging
+import os
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-
 from .. import __version__, errors
+from ..fields import StressField, TemperatureField, ThermalLoad
 from ..model import materials as materials_mod
 from ..model import mesh as mesh_mod
 from ..outputs import summary, vtu
-from ..stages import heat
+from ..stages import heat, mapping, stress
+from ..stages.supports import Support
+from . import store as store_mod
 from . import workflow as wf
 
 log = logging.getLogger(__name__)
 
+RANK = {"heat": 0, "map": 1, "stress": 2}
+RESULT = {"heat": TemperatureField, "map": ThermalLoad, "stress": StressField}
+#: material properties each stage reads (its cache key holds only these)
+READS = {
+    "heat": ("conductivity",),
+    "stress": ("youngs_modulus", "poisson_ratio", "shear_modulus", "expansion", "density", "yield_strength",
+               "tensile_strength", "brittle"),
+}
 
-@dataclass(frozen=True)
-class Model:
-    """What a workflow describes, loaded and checked: the domain and each part's material."""
 
-    workflow: wf.Workflow
-    base: Path
+@dataclass
+class StagePlan:
+    """One stage: its inputs in SI, its key, the domain it works on and what it reads from."""
+
+    name: str
+    kind: str
     domain: mesh_mod.Domain
-    materials: dict[str, materials_mod.Material]
+    spec: object
+    inputs: dict
+    key: str
+    source: str | None = None
+    materials: dict[str, str] = field(default_factory=dict)
+    where: str = ""
 
 
-def load_model(path: str | Path) -> Model:
-    """Parse the workflow, read the mesh and resolve materials; every input problem at once."""
-    model, problems = _load(path)
-    if problems:
-        raise errors.InputError(problems)
-    return model
+@dataclass
+class Plan:
+    path: Path
+    workflow: wf.Workflow
+    stages: list[StagePlan]
+    store: store_mod.Store
+    folder: Path
+    domain: mesh_mod.Domain
 
 
-def _load(path: str | Path) -> tuple[Model, list[str]]:
-    workflow, base = wf.load(path)
-    domain = mesh_mod.load(base / workflow.mesh.file, unit=workflow.mesh.unit)
-    library = materials_mod.library()
+def store_root(path: Path, option: str | None) -> Path:
+    """--store, else $THERMOCHAIN_STORE, else .thermochain-store beside the workflow."""
+    return Path(option or os.environ.get(store_mod.ENV) or path.parent / ".thermochain-store")
+
+
+def plan(path: str | Path, sets: list[str] | None = None, store: str | None = None,
+         out: str | None = None) -> Plan:
+    """Validate everything the run will read and compute each stage's key; every input problem at once."""
+    path = Path(path)
+    workflow = wf.load(path, sets)
     problems: list[str] = []
+    domains: dict[tuple[str, str], mesh_mod.Domain] = {}
+
+    def domain_of(section) -> mesh_mod.Domain:
+        k = (section.file, section.unit)
+        if k not in domains:
+            domains[k] = mesh_mod.load(section.file, unit=section.unit)
+        return domains[k]
+
+    main = domain_of(workflow.mesh)
+    library = materials_mod.library()
     if workflow.materials:
         try:
             library = library.extended(workflow.materials, f"{path}: [materials]")
         except errors.InputError as exc:
             problems += exc.problems
-    chosen = {}
-    for part, entry in workflow.parts.items():
-        where = f"{path}: parts.{part}"
-        if part not in domain.parts:
-            problems.append(errors.unknown_name("part", part, domain.parts, where))
-        if entry.material not in library:
-            problems.append(errors.unknown_name("material", entry.material, library.materials, f"{where}.material"))
+    for part in main.parts:
+        if part not in workflow.parts:
+            problems.append(f"{path}: mesh part '{part}' has no entry in [parts]; give it a material")
+    for part in workflow.parts:
+        if part not in main.parts:
+            problems.append(errors.unknown_name("part", part, main.parts, f"{path}: parts"))
+
+    stages: list[StagePlan] = []
+    by_name: dict[str, StagePlan] = {}
+    versions = store_mod.versions()
+    order = sorted(workflow.stages.items(), key=lambda item: RANK[item[1].kind])
+    failed: set[str] = set()
+    for name, stage in order:
+        where = f"{path}: stages.{name}"
+        if getattr(stage, "source", None) in failed:
+            failed.add(name)  # its source's problems are reported already
             continue
-        material = library[entry.material]
-        if entry.axes is not None:
+        try:
+            planned = _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name, versions)
+        except errors.InputError as exc:
+            problems += exc.problems
+            failed.add(name)
+            continue
+        planned.where = where
+        planned.inputs = json.loads(store_mod.canonical(planned.inputs))  # plain data, as summary.json holds it
+        stages.append(planned)
+        by_name[name] = planned
+    if problems:
+        raise errors.InputError(list(dict.fromkeys(problems)))  # a part's material is read by several stages
+    folder = Path(out) if out else Path(workflow.output.folder)
+    return Plan(path, workflow, stages, store_mod.Store(store_root(path, store)), folder, main)
+
+
+def _materials(workflow, stage, domain, library, where) -> tuple[dict, dict[str, str], list[str]]:
+    problems, chosen, names = [], {}, {}
+    for part in domain.parts:
+        entry = workflow.parts.get(part)
+        name = stage.materials.get(part, entry.material if entry else None)
+        if name is None:
+            continue  # reported once for the workflow
+        if name not in library:
+            key = f"{where}.materials.{part}" if part in stage.materials else f"{workflow_file(where)}: parts.{part}.material"
+            problems.append(errors.unknown_name("material", name, library.materials, key))
+            continue
+        material = library[name]
+        if entry and entry.axes is not None:
             try:
                 material = material.oriented(entry.axes)
             except errors.InputError as exc:
-                problems += [f"{where}.axes: {p}" for p in exc.problems]
-        chosen[part] = material
-    for part in domain.parts:
-        if part not in workflow.parts:
-            problems.append(f"{path}: mesh part '{part}' has no entry in [parts]; give it a material")
-    return Model(workflow, base, domain, chosen), problems
+                problems += [f"{where}: parts.{part}.axes: {p}" for p in exc.problems]
+        chosen[part], names[part] = material, name
+    for part in stage.materials:
+        if part not in domain.parts:
+            problems.append(errors.unknown_name("part", part, domain.parts, f"{where}.materials"))
+    return chosen, names, problems
 
 
-def heat_spec(model: Model, name: str) -> heat.HeatSpec:
-    """The heat stage's inputs in SI from its workflow section."""
-    stage = model.workflow.stages[name]
-    factor = wf.unit_factor(model.workflow)
-    return heat.HeatSpec(
-        materials=model.materials,
-        power=stage.power,
-        generation=stage.generation,
-        flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
-        convection={s: heat.Convection(c.film_coefficient, c.ambient) for s, c in stage.convection.items()},
-        fixed_temperature=stage.fixed_temperature,
-        probes={p: tuple(np.asarray(xyz) * factor) for p, xyz in model.workflow.probes.items()},
-        order=stage.order,
-        solver=stage.solver,
-    )
+def workflow_file(where: str) -> str:
+    """The file part of a "file: key" location."""
+    return where.rsplit(": ", 1)[0]
 
 
-def check(path: str | Path) -> Model:
-    """Validate the workflow, the mesh and every stage's inputs without solving."""
-    model, problems = _load(path)
-    unresolved = [f"part '{p}' has no material" for p in model.domain.parts if p not in model.materials]
-    for name in model.workflow.stages:
-        try:
-            heat.check(model.domain, heat_spec(model, name), where=f"{path}: stages.{name}")
-        except errors.InputError as exc:  # parts whose material failed are reported above already
-            problems += [p for p in exc.problems if not any(p.endswith(u) for u in unresolved)]
+def _checked(check, domain, spec, where, problems, mats):
+    """Run a stage's own check too, so that every problem is reported at once."""
+    try:
+        check(domain, spec, where)
+    except errors.InputError as exc:
+        unresolved = [f"part '{p}' has no material" for p in domain.parts if p not in mats]
+        problems += [p for p in exc.problems if not any(p.endswith(u) for u in unresolved)]
     if problems:
         raise errors.InputError(problems)
-    return model
 
 
-def run(path: str | Path, output: str | Path | None = None) -> dict:
-    """Run every stage of the workflow and write the results folder; returns the summary."""
+def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name, versions) -> StagePlan:
+    probes = {p: tuple(xyz) for p, xyz in workflow.probes.items()}
+    base = {"kind": stage.kind, "versions": versions}
+    if stage.kind == "heat":
+        mats, names, problems = _materials(workflow, stage, main, library, where)
+        spec = heat.HeatSpec(
+            materials=mats, power=stage.power, generation=stage.generation,
+            flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
+            convection={s: heat.Convection(c.film_coefficient, c.ambient) for s, c in stage.convection.items()},
+            fixed_temperature=stage.fixed_temperature, probes=probes, order=stage.order, solver=stage.solver)
+        _checked(heat.check, main, spec, where, problems, mats)
+        inputs = base | {"version": heat.STAGE_VERSION, "options": stage.model_dump(exclude={"materials"}),
+                         "materials": {p: m.reads(*READS["heat"]) for p, m in sorted(mats.items())},
+                         "mesh": [main.source_hash, main.unit], "probes": probes}
+        return StagePlan(name, "heat", main, spec, inputs, store_mod.key(inputs), None, names)
+    if stage.kind == "map":
+        target = domain_of(stage.mesh) if stage.mesh else main
+        spec = mapping.MapSpec(stage.reference, stage.reference_by_part, stage.tolerance, stage.order)
+        options = stage.model_dump(exclude={"source", "file", "mesh"})
+        if stage.source is not None:
+            upstream = _upstream(stage.source, "heat", by_name, where)
+            read = {"upstream": upstream.key}
+        else:
+            file = Path(stage.file)
+            if not file.is_file():
+                raise errors.InputError(f"{where}.file: temperature field file not found: {file}")
+            read = {"file_sha256": store_mod._sha(file)}
+        inputs = base | {"version": mapping.STAGE_VERSION, "options": options,
+                         "mesh": [target.source_hash, target.unit]} | read
+        return StagePlan(name, "map", target, spec, inputs, store_mod.key(inputs), stage.source)
+    # stress
+    upstream = _upstream(stage.source, "map", by_name, where) if stage.source else None
+    domain = upstream.domain if upstream else main
+    mats, names, problems = _materials(workflow, stage, domain, library, where)
+    sups = {s: Support(v.kind, {a: getattr(v, a) for a in "xyz" if getattr(v, a) is not None} or None,
+                       v.stiffness) for s, v in stage.supports.items()}
+    spec = stress.StressSpec(mats, sups, pressure=stage.pressure,
+                             force={s: tuple(f) for s, f in stage.force.items()},
+                             gravity=tuple(stage.gravity) if stage.gravity else None, probes=probes,
+                             order=stage.order, solver=stage.solver)
+    _checked(stress.check, domain, spec, where, problems, mats)
+    inputs = base | {"version": stress.STAGE_VERSION, "options": stage.model_dump(exclude={"materials", "source"}),
+                     "materials": {p: m.reads(*READS["stress"]) for p, m in sorted(mats.items())},
+                     "mesh": [domain.source_hash, domain.unit], "probes": probes,
+                     "upstream": upstream.key if upstream else None}
+    return StagePlan(name, "stress", domain, spec, inputs, store_mod.key(inputs), stage.source, names)
+
+
+def _upstream(source: str, kind: str, by_name: dict, where: str) -> StagePlan:
+    if source not in by_name:
+        raise errors.InputError(errors.unknown_name(f"{kind} stage", source, [n for n, p in by_name.items()
+                                                                             if p.kind == kind], f"{where}.source"))
+    if by_name[source].kind != kind:
+        raise errors.InputError(f"{where}.source: stage '{source}' is a {by_name[source].kind} stage; "
+                                f"this stage reads a {kind} stage")
+    return by_name[source]
+
+
+def decisions(p: Plan, rerun: list[str] | None = None, previous: dict | None = None) -> dict[str, tuple[bool, str]]:
+    """For each stage: (reuse?, reason), as the run would decide, without computing anything."""
+    out = {}
+    changed: set[str] = set()
+    for s in p.stages:
+        hit = (p.store._place(s.kind, s.key) / "manifest.json").is_file()
+        forced = s.name in (rerun or [])
+        out[s.name] = (hit and not forced, _reason(s, hit, forced, previous, changed))
+        if not (hit and not forced):
+            changed.add(s.name)
+    return out
+
+
+def _reason(s: StagePlan, hit: bool, forced: bool, previous: dict | None, changed: set[str]) -> str:
+    if forced:
+        return f"{s.name} recomputed: --rerun {s.name}"
+    old = ((previous or {}).get("stages") or {}).get(s.name, {}).get("inputs")
+    if hit:
+        if old is None or old == s.inputs:
+            return f"{s.name} reused: nothing it reads changed"
+        return f"{s.name} reused: an entry for exactly these inputs is in the store"
+    if old is None:
+        return f"{s.name} computed: not in the store"
+    return f"{s.name} recomputed: {_what_changed(old, s.inputs, s.source, changed)}"
+
+
+def _what_changed(old: dict, new: dict, source: str | None, changed: set[str]) -> str:
+    parts = []
+    om, nm = old.get("materials", {}), new.get("materials", {})
+    for part in sorted(set(om) | set(nm)):
+        props = sorted(k for k in set(om.get(part, {})) | set(nm.get(part, {}))
+                       if om.get(part, {}).get(k) != nm.get(part, {}).get(k))
+        if props:
+            parts.append(f"part {part} changed material ({', '.join(props)})")
+    diffs = _diff(old.get("options", {}), new.get("options", {}))
+    if diffs:
+        parts.append(f"options changed ({', '.join(diffs)})")
+    if old.get("upstream") != new.get("upstream") or old.get("file_sha256") != new.get("file_sha256"):
+        parts.append(f"its source {source} changed" if source else "its field file changed")
+    for keyname, text in (("mesh", "the mesh changed"), ("probes", "the probes changed"),
+                          ("versions", "library versions changed"), ("version", "the stage's code changed")):
+        if old.get(keyname) != new.get(keyname):
+            parts.append(text)
+    return "; ".join(parts) or "its inputs changed"
+
+
+def _diff(a, b, prefix="") -> list[str]:
+    if isinstance(a, dict) and isinstance(b, dict):
+        out = []
+        for k in sorted(set(a) | set(b)):
+            out += _diff(a.get(k), b.get(k), f"{prefix}{k}.")
+        return out
+    return [prefix.rstrip(".")] if a != b else []
+
+
+def check(path, sets=None, store=None, out=None, rerun=None) -> tuple[Plan, dict]:
+    """Validate without solving; returns the plan and each stage's (reuse?, reason)."""
+    p = plan(path, sets, store, out)
+    return p, decisions(p, rerun, _previous(p.folder))
+
+
+def _previous(folder: Path) -> dict | None:
+    try:
+        return json.loads((folder / "summary.json").read_text())
+    except (OSError, ValueError):
+        return None
+
+
+def run(path, sets=None, store=None, out=None, rerun=None) -> dict:
+    """Run the workflow and write its results folder; returns the summary."""
     started = time.perf_counter()
-    model = check(path)
-    folder = Path(output) if output else model.base / model.workflow.output.folder
-    record = {
-        "thermochain": __version__,
-        "workflow": str(path),
-        "title": model.workflow.title,
-        "mesh": {"file": model.workflow.mesh.file, "unit": model.workflow.mesh.unit,
-                 "nodes": len(model.domain.points), "tetrahedra": len(model.domain.tetrahedra),
-                 "bounding_box_m": [b.tolist() for b in model.domain.bounding_box],
-                 "part_ids": vtu.part_legend(model.domain), "notices": list(model.domain.notices)},
-        "materials": {p: {"name": m.name, "source": m.sources.get("conductivity", "")}
-                      for p, m in sorted(model.materials.items())},
-        "stages": {},
-        "caution": summary.CAUTION,
-    }
-    status = "ok"
-    for name in model.workflow.stages:
-        where = f"{path}: stages.{name}"
-        entry = {"kind": "heat", "status": "computed", "reason": "no stage store yet: every run computes every stage"}
+    p = plan(path, sets, store, out)
+    previous = _previous(p.folder)
+    plan_decisions = decisions(p, rerun, previous)
+    record = _header(p)
+    results, domains = {}, {}
+    for s in p.stages:
+        t0 = time.perf_counter()
+        reuse, reason = plan_decisions[s.name]
+        entry = {"kind": s.kind, "key": s.key, "reads": s.source, "materials": s.materials}
         try:
-            field = heat.solve(model.domain, heat_spec(model, name), where=where)
+            with p.store.lock(s.kind, s.key):
+                got = p.store.get(s.kind, s.key) if reuse else None
+                if isinstance(got, tuple):
+                    result, status = RESULT[s.kind].from_arrays(*got), "reused"
+                else:
+                    if isinstance(got, str):
+                        reason = f"{s.name} computed: {got}"
+                    result, status = _compute(p, s, results, domains), "computed"
+                    arrays, meta = result.to_arrays()
+                    p.store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
+                                                            "seconds": time.perf_counter() - t0})
         except errors.ThermochainError as exc:
-            entry.update(status="failed", reason=str(exc))
-            record["stages"][name] = entry
-            status = "failed"
-            summary.write_json(folder / "summary.json", record | {"status": status})
+            record["stages"][s.name] = entry | {"status": "failed", "reason": str(exc)}
+            record["status"] = "failed"
+            summary.write_json(p.folder / "summary.json", record)
             raise
-        entry |= summary.heat_figures(field)
-        if model.workflow.output.vtu:
-            entry["vtu"] = vtu.write_temperature(folder / f"{name}.vtu", model.domain, field).name
-        record["stages"][name] = entry
-    record["status"] = status
+        results[s.name], domains[s.name] = result, s.domain
+        entry |= {"status": status, "reason": reason, "seconds": time.perf_counter() - t0, "inputs": s.inputs}
+        entry |= summary.figures(s.kind, result)
+        if p.workflow.output.vtu and s.kind in ("heat", "stress"):
+            entry["vtu"] = vtu.write(p.folder / f"{s.name}.vtu", s.domain, result).name
+        record["stages"][s.name] = entry
+    record["status"] = "ok"
     record["seconds"] = time.perf_counter() - started
-    summary.write_json(folder / "summary.json", record)
+    summary.write_json(p.folder / "summary.json", record)
+    summary.write_csv(p.folder / "summary.csv", record)
     return record
+
+
+def _compute(p: Plan, s: StagePlan, results: dict, domains: dict):
+    """Run one stage on its inputs (upstream results already in ``results``)."""
+    log.info("%s: computing (%s)", s.name, s.kind)
+    if s.kind == "heat":
+        return heat.solve(s.domain, s.spec, where=s.where)
+    if s.kind == "map":
+        if s.source is not None:
+            return mapping.transfer(results[s.source], domains[s.source], s.domain, s.spec, where=s.where)
+        stage = p.workflow.stages[s.name]
+        return mapping.from_file(stage.file, s.domain, s.spec, array=stage.array, unit=stage.file_unit,
+                                 temperature_unit=stage.temperature_unit, where=s.where)
+    return stress.solve(s.domain, results[s.source] if s.source else None, s.spec, where=s.where)
+
+
+def _header(p: Plan) -> dict:
+    d = p.domain
+    return {
+        "thermochain": __version__, "workflow": str(p.path), "title": p.workflow.title,
+        "store": str(p.store.root),
+        "mesh": {"file": p.workflow.mesh.file, "unit": p.workflow.mesh.unit, "nodes": len(d.points),
+                 "tetrahedra": len(d.tetrahedra), "bounding_box_m": [b.tolist() for b in d.bounding_box],
+                 "part_ids": vtu.part_legend(d), "notices": list(d.notices)},
+        "stages": {}, "caution": summary.CAUTION,
+    }
+

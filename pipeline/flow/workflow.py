@@ -1,32 +1,49 @@
-"""The workflow file: schema, validation and conversion to stage inputs.
+"""The workflow file: schema, validation, ``extends`` and ``--set`` overrides.
 
-A workflow is TOML.  Bare numbers are SI (temperatures in K); probe coordinates are in the mesh's
-length unit.  Paths are relative to the workflow file.  Every problem is reported at once, with the
-file and the key path.  See docs/workflow.md for every key.
+A workflow is TOML.  A quantity is a bare number in SI units (m, K, W, Pa, N) or a string with a unit
+("35 degC", "6 W/(m^2*K)", "2 mm"), converted once by pint.  Paths are relative to the file that names
+them.  Every problem is reported at once, with the file and the key path.  See docs/workflow.md.
 """
 
 from __future__ import annotations
 
+import copy
 import tomllib
 from pathlib import Path
-from typing import Annotated, Literal
+from typing import Annotated, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
 
 from .. import errors
-from ..model.units import LENGTH_UNITS
+from ..model.units import to_si
 
-Positive = Annotated[float, Field(gt=0)]
-Kelvin = Annotated[float, Field(ge=0, description="absolute temperature [K]")]
+
+def quantity(unit: str, **bounds):
+    """A float in ``unit`` (SI) that may be written as a string with any unit of the same dimension."""
+    return Annotated[float, BeforeValidator(lambda v: to_si(v, unit)), Field(description=f"[{unit}]", **bounds)]
+
+
+Temperature = quantity("K", ge=0)
+Length = quantity("m")
+PositiveLength = quantity("m", gt=0)
+Power = quantity("W")
+Generation = quantity("W/m**3")
+HeatFluxDensity = quantity("W/m**2")
+FilmCoefficient = quantity("W/(m**2*K)", gt=0)
+Pressure = quantity("Pa")
+Force = quantity("N")
+SpringStiffness = quantity("N/m**3", gt=0)
+Acceleration = quantity("m/s**2")
+LengthUnit = Literal["m", "cm", "mm", "um", "in"]
 
 
 class Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", strict=False, frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True)
 
 
 class MeshSection(Strict):
     file: str = Field(description="mesh file, relative to the workflow file; any format meshio reads")
-    unit: Literal["m", "cm", "mm", "um", "in"] = Field(description="length unit the mesh was drawn in")
+    unit: LengthUnit = Field(description="length unit the mesh was drawn in")
 
 
 class PartSection(Strict):
@@ -36,24 +53,69 @@ class PartSection(Strict):
 
 
 class ConvectionSection(Strict):
-    film_coefficient: Positive = Field(description="W/(m^2*K)")
-    ambient: Kelvin
+    film_coefficient: FilmCoefficient
+    ambient: Temperature
 
 
 class FluxSection(Strict):
-    per_area: float | None = Field(default=None, description="W/m^2 into the body")
-    total: float | None = Field(default=None, description="W into the body, spread over the surface")
+    per_area: HeatFluxDensity | None = Field(default=None, description="into the body")
+    total: Power | None = Field(default=None, description="into the body, spread over the surface")
 
 
 class HeatStage(Strict):
     kind: Literal["heat"]
     order: Literal[1, 2] = 1
     solver: Literal["auto", "direct", "amg"] = "auto"
-    power: dict[str, float] = Field(default_factory=dict, description="part -> W")
-    generation: dict[str, float] = Field(default_factory=dict, description="part -> W/m^3")
+    materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
+    power: dict[str, Power] = Field(default_factory=dict, description="part -> W")
+    generation: dict[str, Generation] = Field(default_factory=dict, description="part -> W/m^3")
     flux: dict[str, FluxSection] = Field(default_factory=dict)
     convection: dict[str, ConvectionSection] = Field(default_factory=dict)
-    fixed_temperature: dict[str, Kelvin] = Field(default_factory=dict, description="surface -> K")
+    fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="surface -> K")
+
+
+class MapStage(Strict):
+    kind: Literal["map"]
+    source: str | None = Field(default=None, description="the heat stage whose temperatures are mapped")
+    file: str | None = Field(default=None, description="or an external field: VTU point data or CSV x, y, z, T")
+    array: str | None = Field(default=None, description="point-data array of the VTU file")
+    file_unit: LengthUnit = Field(default="m", description="length unit of the file's coordinates")
+    temperature_unit: Literal["K", "degC"] = "K"
+    mesh: MeshSection | None = Field(default=None, description="structural mesh, if not the workflow's mesh")
+    reference: Temperature = Field(default=293.15, description="stress-free temperature [K]")
+    reference_by_part: dict[str, Temperature] = Field(default_factory=dict)
+    tolerance: PositiveLength | None = Field(default=None, description="distance outside the source that is "
+                                             "accepted [m]; default half the source's median edge")
+    order: Literal[1, 2] = Field(default=1, description="order of a cross-mesh or external field")
+
+    @model_validator(mode="after")
+    def _one_source(self):
+        if (self.source is None) == (self.file is None):
+            raise ValueError("give exactly one of 'source' (a heat stage) or 'file' (a field file)")
+        return self
+
+
+class SupportSection(Strict):
+    kind: Literal["fixed", "symmetry", "displacement", "spring", "minimal"]
+    x: Length | None = None
+    y: Length | None = None
+    z: Length | None = None
+    stiffness: SpringStiffness | None = Field(default=None, description="spring stiffness per area [N/m^3]")
+
+
+class StressStage(Strict):
+    kind: Literal["stress"]
+    source: str | None = Field(default=None, description="the map stage that gives the temperatures")
+    order: Literal[1, 2] = 2
+    solver: Literal["auto", "direct", "amg"] = "auto"
+    materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
+    supports: dict[str, SupportSection] = Field(description="surface (or any name for 'minimal') -> support")
+    pressure: dict[str, Pressure] = Field(default_factory=dict, description="surface -> Pa")
+    force: dict[str, Annotated[list[Force], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
+    gravity: Annotated[list[Acceleration], Field(min_length=3, max_length=3)] | None = None
+
+
+Stage = Annotated[Union[HeatStage, MapStage, StressStage], Field(discriminator="kind")]
 
 
 class OutputSection(Strict):
@@ -66,48 +128,132 @@ class Workflow(Strict):
     mesh: MeshSection
     materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, as in the library")
     parts: dict[str, PartSection]
-    stages: dict[str, HeatStage]
-    probes: dict[str, Annotated[list[float], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
+    stages: dict[str, Stage]
+    probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
     output: OutputSection = OutputSection()
 
 
-def load(path: str | Path) -> tuple[Workflow, Path]:
-    """Parse and validate a workflow file; returns the workflow and the folder paths are relative to."""
+def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
+    """The TOML tables of ``path`` merged over those of the file it ``extends`` (recursively).
+
+    Paths in each file are made relative to the file that names them."""
     path = Path(path)
+    if path.resolve() in seen:
+        chain = " -> ".join(str(p) for p in seen + (path.resolve(),))
+        raise errors.InputError(f"{path}: 'extends' loops back on itself: {chain}")
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise errors.InputError(f"{path}: workflow file not found") from None
     except tomllib.TOMLDecodeError as exc:
         raise errors.InputError(f"{path}: TOML syntax error: {exc}") from None
+    _absolute_paths(raw, path.parent)
+    parent = raw.pop("extends", None)
+    if parent is None:
+        return raw
+    if not isinstance(parent, str):
+        raise errors.InputError(f"{path}: extends must be a file name, got {parent!r}")
+    return merge(read_raw(path.parent / parent, seen + (path.resolve(),)), raw)
+
+
+def _absolute_paths(raw: dict, base: Path) -> None:
+    """Turn the file keys of one file into paths relative to the current directory."""
+    def fix(table, key):
+        if isinstance(table, dict) and isinstance(table.get(key), str):
+            table[key] = str(base / table[key])
+
+    fix(raw.get("mesh"), "file")
+    fix(raw.get("output"), "folder")
+    for stage in (raw.get("stages") or {}).values():
+        fix(stage, "file")
+        if isinstance(stage, dict):
+            fix(stage.get("mesh"), "file")
+
+
+def merge(base: dict, override: dict) -> dict:
+    """Deep merge: tables merge key by key, everything else is replaced."""
+    out = copy.deepcopy(base)
+    for key, value in override.items():
+        if isinstance(value, dict) and isinstance(out.get(key), dict):
+            out[key] = merge(out[key], value)
+        else:
+            out[key] = copy.deepcopy(value)
+    return out
+
+
+def apply_sets(raw: dict, sets: list[str], where: str) -> dict:
+    """Apply ``KEY.PATH=VALUE`` overrides; VALUE is read as a TOML value (a bare word is a string)."""
+    raw = copy.deepcopy(raw)
+    for item in sets:
+        if "=" not in item:
+            raise errors.InputError(f"{where}: --set needs KEY=VALUE, got {item!r}")
+        key, text = item.split("=", 1)
+        try:
+            value = tomllib.loads(f"v = {text}")["v"]
+        except tomllib.TOMLDecodeError:
+            value = text
+        table = raw
+        parts = key.strip().split(".")
+        for name in parts[:-1]:
+            table = table.setdefault(name, {})
+            if not isinstance(table, dict):
+                raise errors.InputError(f"{where}: --set {key}: '{name}' is not a table")
+        table[parts[-1]] = value
+    return raw
+
+
+def load(path: str | Path, sets: list[str] | None = None) -> Workflow:
+    """Parse, merge, override and validate a workflow file."""
+    path = Path(path)
+    raw = apply_sets(read_raw(path), sets or [], str(path))
     try:
-        workflow = Workflow.model_validate(raw)
+        return Workflow.model_validate(raw)
     except ValidationError as exc:
-        raise errors.InputError([_message(path, e) for e in exc.errors()]) from None
-    return workflow, path.parent
+        raise errors.InputError([_message(path, e, raw) for e in exc.errors()]) from None
 
 
-def _message(path: Path, error: dict) -> str:
-    loc = ".".join(str(p) for p in error["loc"])
+def schema() -> dict:
+    """The JSON Schema of a workflow file (for editors)."""
+    return Workflow.model_json_schema()
+
+
+def _message(path: Path, error: dict, raw: dict) -> str:
+    loc = _clean(error["loc"])
+    text = ".".join(str(p) for p in loc)
     if error["type"] == "extra_forbidden":
-        parent = _model_at(error["loc"][:-1])
-        hint = errors.closest(str(error["loc"][-1]), parent.model_fields) if parent else ""
-        valid = f"; valid keys: {', '.join(parent.model_fields)}" if parent else ""
-        return f"{path}: unknown key '{loc}'{hint}{valid}"
+        fields = _fields_at(loc[:-1], raw)
+        hint = errors.closest(str(loc[-1]), fields) if fields else ""
+        valid = f"; valid keys: {', '.join(fields)}" if fields else ""
+        return f"{path}: unknown key '{text}'{hint}{valid}"
     if error["type"] == "missing":
-        return f"{path}: missing required key '{loc}'"
-    return f"{path}: {loc}: {error['msg']} (got {error.get('input')!r})"
+        return f"{path}: missing required key '{text}'"
+    message = error["msg"].removeprefix("Value error, ")
+    return f"{path}: {text}: {message} (got {error.get('input')!r})"
 
 
-def _model_at(loc: tuple) -> type[BaseModel] | None:
-    """The schema class at a key path (for listing valid keys), or None inside free-form tables."""
-    model: type[BaseModel] = Workflow
+def _clean(loc: tuple) -> tuple:
+    """Drop the discriminator tags pydantic puts into the key path of a stage (stages.NAME.heat.key)."""
+    out = list(loc)
+    if len(out) > 2 and out[0] == "stages" and out[2] in ("heat", "map", "stress"):
+        del out[2]
+    return tuple(out)
+
+
+def _fields_at(loc: tuple, raw: dict) -> list[str]:
+    """Valid keys of the schema table at a key path (empty inside free-form tables)."""
+    model: type[BaseModel] | None = Workflow
     keys = list(loc)
+    if keys[:1] == ["stages"] and len(keys) >= 2:  # a stage's schema follows from its kind
+        stage = (raw.get("stages") or {}).get(keys[1])
+        kind = stage.get("kind") if isinstance(stage, dict) else None
+        model = {"heat": HeatStage, "map": MapStage, "stress": StressStage}.get(kind)
+        keys = keys[2:]
+        if model is None:
+            return []
     while keys:
-        key = keys.pop(0)
-        field = model.model_fields.get(str(key))
+        field = model.model_fields.get(str(keys.pop(0)))
         if field is None:
-            return None
+            return []
         ann = field.annotation
         sub = getattr(ann, "__args__", None)
         if isinstance(ann, type) and issubclass(ann, BaseModel):
@@ -115,11 +261,7 @@ def _model_at(loc: tuple) -> type[BaseModel] | None:
         elif sub and isinstance(sub[-1], type) and issubclass(sub[-1], BaseModel):
             model = sub[-1]
             if keys:
-                keys.pop(0)  # the dict key (a stage, part or surface name)
+                keys.pop(0)  # the table's own key (a part or surface name)
         else:
-            return None
-    return model
-
-
-def unit_factor(workflow: Workflow) -> float:
-    return LENGTH_UNITS[workflow.mesh.unit]
+            return []
+    return list(model.model_fields)

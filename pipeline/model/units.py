@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 from .. import errors
 
 #: Length units a mesh may be drawn in, as metres per unit.
@@ -31,3 +33,33 @@ def celsius(t_kelvin):
 def kelvin(t_celsius):
     """Temperature in K from degC (numbers or arrays)."""
     return t_celsius + ZERO_CELSIUS
+
+
+_REGISTRY = None
+_NUMBER_AND_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+def to_si(value, unit: str):
+    """A number (already SI) or a string "number unit" converted to ``unit`` (an SI unit) with pint.
+
+    Raises ValueError with a readable message for an unknown unit or a unit of the wrong dimension.
+    """
+    if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+        raise ValueError(f"expected a number or a string with a unit of {unit}, got {value!r}")
+    if not isinstance(value, str):
+        return float(value)
+    match = _NUMBER_AND_UNIT.match(value)
+    if not match:
+        raise ValueError(f"expected 'number unit' (for example '35 degC'), got {value!r}")
+    magnitude, text = float(match.group(1)), match.group(2) or unit
+    import pint
+
+    global _REGISTRY
+    if _REGISTRY is None:
+        _REGISTRY = pint.UnitRegistry()
+    try:
+        return float(_REGISTRY.Quantity(magnitude, text).to(unit).magnitude)
+    except pint.errors.DimensionalityError:
+        raise ValueError(f"'{text}' is not a unit of {unit} (wrong dimension)") from None
+    except (pint.errors.UndefinedUnitError, AttributeError, TypeError, ValueError, AssertionError):
+        raise ValueError(f"'{text}' is not a known unit") from None

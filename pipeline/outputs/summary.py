@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 import os
 import tempfile
 from pathlib import Path
+
+import numpy as np
 
 from ..model.units import celsius
 
@@ -16,6 +20,49 @@ CAUTION = (
     "qualified engineer, a licensed professional engineer where required, before any design release or safety "
     "decision; applicable codes, standards and component datasheets take precedence."
 )
+
+
+def figures(kind: str, result) -> dict:
+    """The figures of a stage result that a summary shows, with the unit in each key's name."""
+    return {"heat": heat_figures, "map": map_figures, "stress": stress_figures}[kind](result)
+
+
+def map_figures(load) -> dict:
+    return {"order": load.order, "diagnostics": dict(load.diagnostics),
+            "reference_degC": {"min": round(celsius(float(load.reference.min())), 4),
+                               "max": round(celsius(float(load.reference.max())), 4)}}
+
+
+def stress_figures(field) -> dict:
+    return {
+        "order": field.order,
+        "parts": {p: dict(f) for p, f in field.parts.items()},
+        "reactions_N": {k: list(v) for k, v in field.reactions.items()},
+        "equilibrium": dict(field.equilibrium),
+        "probes": dict(field.probes),
+        "displacement_max_m": float(np.linalg.norm(field.displacement, axis=1).max()),
+        "solver": field.solver.to_dict() | {"history": []},
+        "notices": list(field.notices),
+    }
+
+
+def write_csv(path: Path, record: dict) -> None:
+    """The per-part tables of every stage as rows: stage, kind, item, quantity, value."""
+    rows = [["stage", "kind", "item", "quantity", "value"]]
+    for name, st in record["stages"].items():
+        for part, s in st.get("parts_degC", {}).items():
+            rows += [[name, st["kind"], part, f"temperature_{k}_degC", v] for k, v in s.items()]
+        for probe, v in st.get("probes_degC", {}).items():
+            rows.append([name, st["kind"], probe, "probe_temperature_degC", v])
+        for r in st.get("heat_balance_W", []):
+            rows.append([name, st["kind"], r["name"], f"{r['kind']}_heat_in_W", r["heat_in_W"]])
+        for part, f in st.get("parts", {}).items():
+            rows += [[name, st["kind"], part, k, v] for k, v in f.items() if isinstance(v, (int, float))]
+        for support, r in st.get("reactions_N", {}).items():
+            rows += [[name, st["kind"], support, f"reaction_{a}_N", v] for a, v in zip("xyz", r)]
+    text = io.StringIO()
+    csv.writer(text).writerows(rows)
+    write_text(path, text.getvalue())
 
 
 def heat_figures(field) -> dict:
@@ -35,13 +82,17 @@ def heat_figures(field) -> dict:
 
 
 def write_json(path: Path, data: dict) -> None:
-    """Write JSON atomically: a temporary file beside the target, fsync, rename."""
+    """Write JSON atomically (see ``write_text``)."""
+    write_text(path, json.dumps(data, indent=2, allow_nan=False, default=float) + "\n")
+
+
+def write_text(path: Path, text: str) -> None:
+    """Write a file atomically: a temporary file beside the target, fsync, rename."""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as f:
-            json.dump(data, f, indent=2, allow_nan=False)
-            f.write("\n")
+            f.write(text)
             f.flush()
             os.fsync(f.fileno())
         os.replace(tmp, path)

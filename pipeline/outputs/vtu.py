@@ -9,23 +9,39 @@ import meshio
 from ..model.units import celsius
 
 
+def write(path: Path, domain, result) -> Path:
+    """A VTU of a heat or stress result."""
+    from ..fields import StressField
+
+    return (write_stress if isinstance(result, StressField) else write_temperature)(path, domain, result)
+
+
+def write_stress(path: Path, domain, field) -> Path:
+    """Displacement at the vertices [m] (3-vector, for warping), per cell: stress [Pa] as 6 components
+    in the order xx, yy, zz, yz, xz, xy, von Mises, Tresca and principal stresses [Pa], and ``part_id``."""
+    nv = len(domain.points)
+    cells = {"part_id": domain.part_ids(), "stress_xx_yy_zz_yz_xz_xy_Pa": field.stress,
+             "von_mises_Pa": field.von_mises, "tresca_Pa": field.tresca, "principal_Pa": field.principal}
+    return _write(path, domain, {"displacement_m": field.displacement[:nv]}, cells)
+
+
+def _write(path: Path, domain, points: dict, cells: dict) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    mesh = meshio.Mesh(domain.points, [("tetra", domain.tetrahedra)], point_data=points,
+                       cell_data={k: [v] for k, v in cells.items()})
+    tmp = path.with_name(f".{path.name}.tmp")
+    meshio.write(tmp, mesh, file_format="vtu", compression="zlib")
+    tmp.replace(path)
+    return path
+
+
 def write_temperature(path: Path, domain, field) -> Path:
     """Temperature at the vertices [K and degC] and ``part_id`` per cell (index in sorted part names).
 
     P2 fields are written at the vertices only (the linear cells the mesh was read with).
     """
-    path.parent.mkdir(parents=True, exist_ok=True)
     t = field.at_vertices
-    mesh = meshio.Mesh(
-        domain.points,
-        [("tetra", domain.tetrahedra)],
-        point_data={"temperature_K": t, "temperature_degC": celsius(t)},
-        cell_data={"part_id": [domain.part_ids()]},
-    )
-    tmp = path.with_name(f".{path.name}.tmp")
-    meshio.write(tmp, mesh, file_format="vtu", compression="zlib")
-    tmp.replace(path)
-    return path
+    return _write(path, domain, {"temperature_K": t, "temperature_degC": celsius(t)}, {"part_id": domain.part_ids()})
 
 
 def part_legend(domain) -> dict[str, int]:

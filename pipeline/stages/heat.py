@@ -114,6 +114,10 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
                     problems.append(f"{where}.{key}: surface '{surface}' has {inner} facets inside the body, "
                                     "not on its boundary; convection and flux need a boundary surface")
     problems += _value_problems(spec, where)
+    try:
+        fem.probe_points(domain, spec.probes, where)
+    except errors.InputError as exc:
+        problems += exc.problems
     if problems:
         raise errors.InputError(problems)
 

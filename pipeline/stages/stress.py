@@ -121,6 +121,10 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
             problems.append(f"{where}: material '{m.name}' of part '{part}' needs a positive Young's modulus")
         if m.kind == "isotropic" and not -1 < m.poisson_ratio[0] < 0.5:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
+    try:
+        fem.probe_points(domain, spec.probes, where)
+    except errors.InputError as exc:
+        problems += exc.problems
     if problems:
         raise errors.InputError(problems)
 
