@@ -298,12 +298,14 @@ def run(path, sets=None, store=None, out=None, rerun=None) -> dict:
         reuse, reason = plan_decisions[s.name]
         entry = {"kind": s.kind, "key": s.key, "reads": s.source, "materials": s.materials}
         try:
-            with p.store.lock(s.kind, s.key):
-                got = p.store.get(s.kind, s.key) if reuse else None
+            with p.store.lock(s.kind, s.key):  # a second run waits here, then finds the entry
+                got = None if s.name in (rerun or []) else p.store.get(s.kind, s.key)
                 if isinstance(got, tuple):
                     result, status = RESULT[s.kind].from_arrays(*got), "reused"
+                    if not reuse:
+                        reason = f"{s.name} reused: another run computed it meanwhile"
                 else:
-                    if isinstance(got, str):
+                    if isinstance(got, str) and reuse:
                         reason = f"{s.name} computed: {got}"
                     result, status = _compute(p, s, results, domains), "computed"
                     arrays, meta = result.to_arrays()
