@@ -67,7 +67,15 @@ def main(argv: list[str] | None = None) -> int:
 def _run(args) -> int:
     from .flow import runner
 
-    record = runner.run(args.workflow, args.set, args.store, args.out, args.rerun)
+    import time
+
+    start = time.perf_counter()
+
+    def progress(line: str) -> None:
+        if not args.quiet:
+            print(f"[{time.perf_counter() - start:7.2f} s] {line}", file=sys.stderr, flush=True)
+
+    record = runner.run(args.workflow, args.set, args.store, args.out, args.rerun, progress=progress)
     if not args.quiet:
         _print_run(record)
     return 0

@@ -285,9 +285,12 @@ def _previous(folder: Path) -> dict | None:
         return None
 
 
-def run(path, sets=None, store=None, out=None, rerun=None) -> dict:
-    """Run the workflow and write its results folder; returns the summary."""
+def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dict:
+    """Run the workflow and write its results folder; returns the summary.
+
+    progress: optional callable receiving one line per stage event (start, end with solver figures)."""
     started = time.perf_counter()
+    say = progress or (lambda line: None)
     p = plan(path, sets, store, out)
     previous = _previous(p.folder)
     plan_decisions = decisions(p, rerun, previous)
@@ -307,6 +310,7 @@ def run(path, sets=None, store=None, out=None, rerun=None) -> dict:
                 else:
                     if isinstance(got, str) and reuse:
                         reason = f"{s.name} computed: {got}"
+                    say(f"{s.name}: computing ({s.kind}, {len(s.domain.tetrahedra)} tetrahedra)")
                     result, status = _compute(p, s, results, domains), "computed"
                     arrays, meta = result.to_arrays()
                     p.store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
@@ -317,6 +321,10 @@ def run(path, sets=None, store=None, out=None, rerun=None) -> dict:
             summary.write_json(p.folder / "summary.json", record)
             raise
         results[s.name], domains[s.name] = result, s.domain
+        solver = getattr(result, "solver", None)
+        detail = (f"; {solver.method} solve of {solver.unknowns} unknowns, {solver.iterations} iterations, "
+                  f"residual {solver.residual:.1e}") if solver and status == "computed" else ""
+        say(f"{s.name}: {status} in {time.perf_counter() - t0:.2f} s{detail}")
         entry |= {"status": status, "reason": reason, "seconds": time.perf_counter() - t0, "inputs": s.inputs}
         entry |= summary.figures(s.kind, result)
         if p.workflow.output.vtu and s.kind in ("heat", "stress"):
