@@ -9,6 +9,7 @@ import argparse
 import logging
 import sys
 import traceback
+from pathlib import Path
 
 from . import __version__, errors
 
@@ -32,6 +33,9 @@ def _parser() -> argparse.ArgumentParser:
         cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or "
                                          ".thermochain-store beside the workflow)")
     sub.add_parser("schema", help="print the JSON Schema of workflow files")
+    rep = sub.add_parser("report", help="rebuild the figures and report.html of a results folder, without solving")
+    rep.add_argument("folder")
+    rep.add_argument("--store", help="stage store folder (default: the one the run used)")
     st = sub.add_parser("store", help="list the stage store's entries, or remove old ones")
     st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE or .thermochain-store)")
     st.add_argument("--clean", type=float, metavar="DAYS", help="remove entries not used for DAYS days")
@@ -92,6 +96,15 @@ def _check(args) -> int:
             reuse, reason = decisions[s.name]
             reads = f", reads {s.source}" if s.source else ""
             print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
+    return 0
+
+
+def _report(args) -> int:
+    from .flow import runner
+
+    record = runner.report(args.folder, args.store)
+    if not args.quiet:
+        print(f"report rebuilt: {args.folder}/{record.get('report', 'report.html')}")
     return 0
 
 
@@ -196,8 +209,12 @@ def _print_run(record: dict) -> None:
                   f"adiabatic: {', '.join(stage['adiabatic_surfaces']) or 'none'}")
         for note in stage.get("notices", []):
             print(f"  note: {note}")
+    for w in record.get("warnings", []):
+        print(f"warning: {w}")
+    if "report" in record:
+        print(f"report: {Path(record['folder']) / record['report']}")
     print("Caution: " + record["caution"])
 
 
 COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh, "schema": _schema,
-            "store": _store}
+            "store": _store, "report": _report}

@@ -17,7 +17,7 @@ from .. import __version__, errors
 from ..fields import StressField, TemperatureField, ThermalLoad
 from ..model import materials as materials_mod
 from ..model import mesh as mesh_mod
-from ..outputs import summary, vtu
+from ..outputs import publish, summary
 from ..stages import heat, mapping, stress
 from ..stages.supports import Support
 from . import store as store_mod
@@ -294,7 +294,7 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
     p = plan(path, sets, store, out)
     previous = _previous(p.folder)
     plan_decisions = decisions(p, rerun, previous)
-    record = _header(p)
+    record = _header(p) | {"sets": list(sets or []), "folder": str(p.folder)}
     results, domains = {}, {}
     for s in p.stages:
         t0 = time.perf_counter()
@@ -326,15 +326,47 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
                   f"residual {solver.residual:.1e}") if solver and status == "computed" else ""
         say(f"{s.name}: {status} in {time.perf_counter() - t0:.2f} s{detail}")
         entry |= {"status": status, "reason": reason, "seconds": time.perf_counter() - t0, "inputs": s.inputs}
-        entry |= summary.figures(s.kind, result)
-        if p.workflow.output.vtu and s.kind in ("heat", "stress"):
-            entry["vtu"] = vtu.write(p.folder / f"{s.name}.vtu", s.domain, result).name
+        entry |= summary.figures(s.kind, result) | _support_lists(s)
         record["stages"][s.name] = entry
     record["status"] = "ok"
+    _publish(p, record, results, domains)
     record["seconds"] = time.perf_counter() - started
     summary.write_json(p.folder / "summary.json", record)
     summary.write_csv(p.folder / "summary.csv", record)
+    say(f"results in {p.folder}" + (f"; report {p.folder / record['report']}" if "report" in record else ""))
     return record
+
+
+def _support_lists(s: StagePlan) -> dict:
+    if s.kind != "stress":
+        return {}
+    sups = s.spec.supports
+    return {"support_surfaces": [n for n, v in sups.items() if v.kind != "minimal"],
+            "fixed_supports": [n for n, v in sups.items() if v.kind == "fixed"]}
+
+
+def _publish(p: Plan, record: dict, results: dict, domains: dict) -> None:
+    limits = {part: e.temperature_limit for part, e in p.workflow.parts.items() if e.temperature_limit is not None}
+    publish.write(p.folder, record, results, domains, p.workflow.output, limits)
+
+
+def report(folder: str | Path, store: str | None = None) -> dict:
+    """Rebuild figures and report.html of a results folder from its stored results, without solving."""
+    folder = Path(folder)
+    previous = _previous(folder)
+    if previous is None:
+        raise errors.InputError(f"{folder}: no summary.json here; give the results folder of a run")
+    p = plan(previous["workflow_path"], previous.get("sets"), store or previous["store"], str(folder))
+    results, domains = {}, {}
+    for s in p.stages:
+        got = p.store.get(s.kind, s.key)
+        if not isinstance(got, tuple) or previous["stages"].get(s.name, {}).get("key") != s.key:
+            raise errors.InputError(f"{folder}: the stored result of stage {s.name} no longer matches the workflow "
+                                    f"({got if isinstance(got, str) else 'inputs changed'}); run it again")
+        results[s.name], domains[s.name] = RESULT[s.kind].from_arrays(*got), s.domain
+    _publish(p, previous, results, domains)
+    summary.write_json(folder / "summary.json", previous)
+    return previous
 
 
 def _compute(p: Plan, s: StagePlan, results: dict, domains: dict):
@@ -351,14 +383,23 @@ def _compute(p: Plan, s: StagePlan, results: dict, domains: dict):
     return stress.solve(s.domain, results[s.source] if s.source else None, s.spec, where=s.where)
 
 
+def _material_sources(p: Plan) -> dict[str, str]:
+    out = {}
+    for s in p.stages:
+        for part, material in getattr(s.spec, "materials", {}).items():
+            out[s.materials[part]] = "; ".join(dict.fromkeys(material.sources.values())) or "inline"
+    return out
+
+
 def _header(p: Plan) -> dict:
     d = p.domain
     return {
-        "thermochain": __version__, "workflow": str(p.path), "title": p.workflow.title,
-        "store": str(p.store.root),
+        "thermochain": __version__, "workflow": str(p.path), "workflow_path": str(p.path.resolve()),
+        "title": p.workflow.title, "store": str(p.store.root.resolve()),
+        "material_sources": _material_sources(p),
         "mesh": {"file": p.workflow.mesh.file, "unit": p.workflow.mesh.unit, "nodes": len(d.points),
                  "tetrahedra": len(d.tetrahedra), "bounding_box_m": [b.tolist() for b in d.bounding_box],
-                 "part_ids": vtu.part_legend(d), "notices": list(d.notices)},
+                 "part_ids": publish.vtu.part_legend(d), "notices": list(d.notices)},
         "stages": {}, "caution": summary.CAUTION,
     }
 

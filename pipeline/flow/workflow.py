@@ -50,6 +50,7 @@ class PartSection(Strict):
     material: str = Field(description="name in the material library or in [materials]")
     axes: list[list[float]] | None = Field(
         default=None, description="material x and y (and z) directions in model coordinates, for orthotropic parts")
+    temperature_limit: Temperature | None = Field(default=None, description="highest allowed temperature [K]")
 
 
 class ConvectionSection(Strict):
@@ -121,6 +122,10 @@ Stage = Annotated[Union[HeatStage, MapStage, StressStage], Field(discriminator="
 class OutputSection(Strict):
     folder: str = Field(default="results", description="results folder, relative to the workflow file")
     vtu: bool = True
+    figures: bool = Field(default=True, description="PNG figures (pyvista off-screen, matplotlib)")
+    report: bool = Field(default=True, description="report.html with the figures embedded")
+    required_safety_factor: Annotated[float, Field(gt=0)] = Field(
+        default=1.5, description="pass/fail threshold in the report (1.5 against yield is common practice)")
 
 
 class Workflow(Strict):

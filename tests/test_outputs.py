@@ -1,0 +1,124 @@
+"""Results people look at: VTU + PVD, PNG figures (not blank, colour range = field range), report.html."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import meshio
+import numpy as np
+import pytest
+
+from pipeline.flow import runner
+from pipeline.model.units import celsius
+
+ROOT = Path(__file__).parent.parent
+DEMO = ROOT / "workflows" / "heat_spreader.toml"
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("demo")
+    record = runner.run(DEMO, ['parts.chip.temperature_limit="80 degC"'], store=tmp / "store", out=tmp / "out")
+    return tmp / "out", record
+
+
+def test_vtu_files_hold_the_fields_and_the_pvd_lists_them(demo_run):
+    out, record = demo_run
+    heat_grid = meshio.read(out / "heat.vtu")
+    t = heat_grid.point_data["temperature_degC"]
+    assert t.max() == pytest.approx(max(s["max"] for s in record["stages"]["heat"]["parts_degC"].values()), abs=1e-3)
+    stress_grid = meshio.read(out / "stress.vtu")
+    assert stress_grid.point_data["displacement_m"].shape == (len(stress_grid.points), 3)
+    assert stress_grid.cell_data["stress_xx_yy_zz_yz_xz_xy_Pa"][0].shape[1] == 6
+    ids = stress_grid.cell_data["part_id"][0]
+    assert sorted(np.unique(ids)) == sorted(record["mesh"]["part_ids"].values())
+    pvd = (out / "results.pvd").read_text()
+    assert 'file="heat.vtu"' in pvd and 'file="stress.vtu"' in pvd
+
+
+def image(path):
+    from matplotlib.image import imread
+
+    return imread(path)[..., :3]
+
+
+def test_figures_are_not_blank_and_show_the_field_range(demo_run):
+    out, record = demo_run
+    heat = record["stages"]["heat"]
+    figures = {f["file"]: f for st in record["stages"].values() for f in st.get("figures", [])}
+    assert {"heat_outside.png", "heat_cut.png", "heat_parts.png", "stress_von_mises.png"} <= set(figures)
+    for name in figures:
+        pixels = image(out / name)
+        assert pixels.std() > 0.02, f"{name} looks blank"
+        assert len(np.unique((pixels * 255).astype(int).reshape(-1, 3), axis=0)) > 50, name
+    t = meshio.read(out / "heat.vtu").point_data["temperature_degC"]
+    lo, hi = figures["heat_outside.png"]["range"]
+    assert lo == pytest.approx(t.min(), abs=1e-9) and hi == pytest.approx(t.max(), abs=1e-9)
+    vm = meshio.read(out / "stress.vtu").cell_data["von_mises_Pa"][0] / 1e6
+    lo, hi = figures["stress_von_mises.png"]["range"]
+    assert vm.min() - 1e-9 <= lo <= hi <= vm.max() + 1e-9 and hi > 0.5 * vm.max()
+    assert figures["stress_von_mises.png"]["exaggeration"] > 1
+    assert figures["heat_cut.png"]["part"] == "board"
+    assert heat["figures"][0]["unit"] == "degC"
+
+
+def test_report_is_self_contained_with_tables_warnings_and_cautions(demo_run):
+    out, record = demo_run
+    text = (out / "report.html").read_text()
+    assert "src=\"http" not in text and text.count("data:image/png;base64,") == sum(
+        len(st.get("figures", [])) for st in record["stages"].values())
+    for needed in ("Heat balance", "peak von Mises", "safety factor", "Materials", "Sarvar", "Caution",
+                   "qualified engineer", "key (SHA-256", "scikit-fem", "FAIL"):
+        assert needed in text, needed
+    # the chip is above its 80 degC limit: a failing row and a warning
+    assert any("chip reaches" in w and "above its limit 80.0 degC" in w for w in record["warnings"])
+
+
+def test_report_command_rebuilds_without_solving(demo_run, monkeypatch):
+    out, record = demo_run
+    (out / "report.html").unlink()
+    from pipeline.stages import heat, stress
+
+    def refuse(*a, **k):
+        raise AssertionError("report must not solve")
+
+    monkeypatch.setattr(heat, "solve", refuse)
+    monkeypatch.setattr(stress, "solve", refuse)
+    rebuilt = runner.report(out)
+    assert (out / "report.html").is_file() and rebuilt["status"] == "ok"
+    r = subprocess.run([sys.executable, "-m", "pipeline", "report", str(out)], capture_output=True, text=True)
+    assert r.returncode == 0 and "report rebuilt" in r.stdout
+
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is installed by .ci/run")
+def test_report_opens_in_headless_chromium_with_every_image_loaded(demo_run, tmp_path):
+    out, record = demo_run
+    probe = tmp_path / "probe.html"
+    report = (out / "report.html").as_uri()
+    # a small page that loads the report in a frame and prints what it finds into the DOM
+    probe.write_text(f"""<!doctype html><html><body><iframe id=f src="{report}" width=1200 height=800></iframe>
+<pre id=out>waiting</pre><script>
+document.getElementById('f').onload = function() {{
+  const d = document.getElementById('f').contentDocument;
+  const imgs = Array.from(d.images);
+  const loaded = imgs.filter(i => i.complete && i.naturalWidth > 0).length;
+  document.getElementById('out').textContent = 'images=' + imgs.length + ' loaded=' + loaded +
+     ' tables=' + d.querySelectorAll('table').length;
+}};
+</script></body></html>""")
+    result = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                             "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                             "--allow-file-access-from-files", f"--user-data-dir={tmp_path / 'profile'}",
+                             "--virtual-time-budget=10000", "--dump-dom", probe.as_uri()],
+                            capture_output=True, text=True, timeout=120)
+    figures = sum(len(st.get("figures", [])) for st in record["stages"].values())
+    assert f"images={figures} loaded={figures}" in result.stdout, result.stdout[-2000:] + result.stderr[-2000:]
+    tables = int(result.stdout.split("tables=")[1].split("<")[0])
+    assert tables >= 8
