@@ -16,6 +16,7 @@ from pathlib import Path
 from .. import __version__, errors
 from ..fields import StressField, TemperatureField, ThermalLoad
 from ..model import materials as materials_mod
+from ..model import finishes
 from ..model import mesh as mesh_mod
 from ..outputs import publish, summary
 from ..stages import heat, mapping, stress
@@ -167,8 +168,11 @@ def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name,
         spec = heat.HeatSpec(
             materials=mats, power=stage.power, generation=stage.generation,
             flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
-            convection={s: heat.Convection(c.film_coefficient, c.ambient) for s, c in stage.convection.items()},
-            fixed_temperature=stage.fixed_temperature, probes=probes, order=stage.order, solver=stage.solver)
+            convection={s: heat.Convection(c.film_coefficient, c.ambient, c.exponent, c.reference_difference)
+                        for s, c in stage.convection.items()},
+            radiation=_radiation(stage, where, problems),
+            fixed_temperature=stage.fixed_temperature, probes=probes, order=stage.order, solver=stage.solver,
+            max_iterations=stage.max_iterations)
         _checked(heat.check, main, spec, where, problems, mats)
         inputs = base | {"version": heat.STAGE_VERSION, "options": stage.model_dump(exclude={"materials"}),
                          "materials": {p: m.reads(*READS["heat"]) for p, m in sorted(mats.items())},
@@ -205,6 +209,18 @@ def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name,
                      "mesh": [domain.source_hash, domain.unit], "probes": probes,
                      "upstream": upstream.key if upstream else None}
     return StagePlan(name, "stress", domain, spec, inputs, store_mod.key(inputs), stage.source, names)
+
+
+def _radiation(stage, where: str, problems: list[str]) -> dict:
+    out = {}
+    for surface, r in stage.radiation.items():
+        try:
+            eps, _ = finishes.emissivity(r.emissivity, f"{where}.radiation.{surface}.emissivity")
+        except errors.InputError as exc:
+            problems += exc.problems
+            continue
+        out[surface] = heat.Radiation(eps, r.surroundings)
+    return out
 
 
 def _upstream(source: str, kind: str, by_name: dict, where: str) -> StagePlan:

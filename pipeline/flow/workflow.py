@@ -56,6 +56,15 @@ class PartSection(Strict):
 class ConvectionSection(Strict):
     film_coefficient: FilmCoefficient
     ambient: Temperature
+    exponent: Annotated[float, Field(ge=0)] = Field(default=0.0, description="h = film_coefficient * "
+                                                    "(|T - ambient| / reference_difference)^exponent")
+    reference_difference: quantity("K", gt=0) = Field(default=1.0, description="temperature difference [K] "
+                                                      "at which h equals film_coefficient")
+
+
+class RadiationSection(Strict):
+    emissivity: Annotated[float, Field(ge=0, le=1)] | str = Field(description="0..1 or a finish name")
+    surroundings: Temperature
 
 
 class FluxSection(Strict):
@@ -72,7 +81,9 @@ class HeatStage(Strict):
     generation: dict[str, Generation] = Field(default_factory=dict, description="part -> W/m^3")
     flux: dict[str, FluxSection] = Field(default_factory=dict)
     convection: dict[str, ConvectionSection] = Field(default_factory=dict)
+    radiation: dict[str, RadiationSection] = Field(default_factory=dict)
     fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="surface -> K")
+    max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most")
 
 
 class MapStage(Strict):

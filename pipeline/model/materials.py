@@ -33,6 +33,9 @@ OPTIONAL = {
 }
 UNITS = REQUIRED | OPTIONAL
 TEXT_KEYS = {"title", "kind", "brittle", "note", "sources"}
+#: temperature-dependent conductivity: a table of rows [T, k] or [T, kx, ky, kz] (K, W/(m*K)), or
+#: polynomial coefficients c0, c1, ... with k = sum c_i T^i (T in K)
+CURVE_KEYS = {"conductivity_table", "conductivity_polynomial"}
 KINDS = ("isotropic", "orthotropic")
 
 
@@ -57,6 +60,34 @@ class Material:
     note: str = ""
     sources: dict[str, str] = field(default_factory=dict)
     axes: tuple[tuple[float, ...], ...] = ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0))
+    conductivity_table: tuple[tuple[float, ...], ...] = ()
+    conductivity_polynomial: tuple[float, ...] = ()
+
+    @property
+    def conductivity_varies(self) -> bool:
+        return bool(self.conductivity_table or self.conductivity_polynomial)
+
+    def conductivity_at(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
+        """Principal conductivities (3, *t.shape) [W/(m*K)] at temperatures t [K], their derivatives
+        [W/(m*K^2)], and how many values lay outside a table (held at the end value there)."""
+        t = np.asarray(t, dtype=float)
+        if self.conductivity_table:
+            table = np.asarray(self.conductivity_table, dtype=float)
+            ts, ks = table[:, 0], np.broadcast_to(table[:, 1:].T, (3, len(table))) if table.shape[1] == 4 else \
+                np.tile(table[:, 1], (3, 1))
+            k = np.stack([np.interp(t, ts, ks[i]) for i in range(3)])
+            slopes = np.diff(ks, axis=1) / np.diff(ts)
+            seg = np.clip(np.searchsorted(ts, t, side="right") - 1, 0, len(ts) - 2)
+            inside = (t >= ts[0]) & (t <= ts[-1])
+            dk = np.stack([np.where(inside, slopes[i][seg], 0.0) for i in range(3)])
+            return k, dk, int((~inside).sum())
+        if self.conductivity_polynomial:
+            c = np.asarray(self.conductivity_polynomial, dtype=float)
+            k = np.polynomial.polynomial.polyval(t, c)
+            dk = np.polynomial.polynomial.polyval(t, np.polynomial.polynomial.polyder(c))
+            return np.stack([k] * 3), np.stack([dk] * 3), 0
+        k = np.broadcast_to(np.asarray(self.conductivity, dtype=float), (3,))
+        return (np.broadcast_to(k.reshape(3, *([1] * t.ndim)), (3, *t.shape)), np.zeros((3, *t.shape)), 0)
 
     def conductivity_tensor(self) -> np.ndarray:
         """(3, 3) conductivity in model coordinates [W/(m*K)]."""
@@ -71,6 +102,9 @@ class Material:
     def reads(self, *props: str) -> dict:
         """The named properties and the axes, as plain data (what a stage's cache key reads)."""
         out = {p: getattr(self, p) for p in props}
+        if "conductivity" in props and self.conductivity_varies:
+            out |= {"conductivity_table": self.conductivity_table,
+                    "conductivity_polynomial": self.conductivity_polynomial}
         if self.kind == "orthotropic":
             out["axes"] = self.axes
         return out
@@ -97,7 +131,7 @@ def from_record(name: str, record: dict, where: str) -> Material:
     """Build a ``Material`` from a TOML table; every problem is reported at once."""
     where = f"{where}: material '{name}'"
     problems = []
-    unknown = set(record) - set(UNITS) - TEXT_KEYS - {"axes"}
+    unknown = set(record) - set(UNITS) - TEXT_KEYS - CURVE_KEYS - {"axes"}
     for key in sorted(unknown):
         problems.append(f"{where}: unknown key '{key}'{errors.closest(key, list(UNITS) + list(TEXT_KEYS))}")
     kind = record.get("kind", "isotropic")
@@ -126,6 +160,7 @@ def from_record(name: str, record: dict, where: str) -> Material:
         seq = [float(v) for v in seq]
         problems += _range_problems(where, key, seq)
         values[key] = tuple(seq) if vector else seq[0]
+    values |= _curves(record, where, problems)
     if problems:
         raise errors.InputError(problems)
     material = Material(
@@ -140,6 +175,29 @@ def from_record(name: str, record: dict, where: str) -> Material:
     if "axes" in record:
         material = material.oriented(record["axes"])
     return material
+
+
+def _curves(record: dict, where: str, problems: list[str]) -> dict:
+    out = {}
+    table = record.get("conductivity_table")
+    if table is not None:
+        rows = np.asarray(table, dtype=float) if isinstance(table, list) else np.zeros((0, 0))
+        if rows.ndim != 2 or rows.shape[1] not in (2, 4) or len(rows) < 2:
+            problems.append(f"{where}: conductivity_table must be rows [T, k] or [T, kx, ky, kz] (K, W/(m*K)), "
+                            "at least two")
+        elif np.any(np.diff(rows[:, 0]) <= 0) or np.any(rows[:, 1:] <= 0) or rows[0, 0] < 0:
+            problems.append(f"{where}: conductivity_table needs increasing temperatures >= 0 K and positive values")
+        else:
+            out["conductivity_table"] = tuple(tuple(float(v) for v in r) for r in rows)
+    poly = record.get("conductivity_polynomial")
+    if poly is not None:
+        if not isinstance(poly, list) or not poly or not all(isinstance(c, (int, float)) for c in poly):
+            problems.append(f"{where}: conductivity_polynomial must be coefficients [c0, c1, ...] of k(T), T in K")
+        else:
+            out["conductivity_polynomial"] = tuple(float(c) for c in poly)
+    if len(out) == 2:
+        problems.append(f"{where}: give conductivity_table or conductivity_polynomial, not both")
+    return out
 
 
 def _range_problems(where: str, key: str, values: list[float]) -> list[str]:

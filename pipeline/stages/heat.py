@@ -28,10 +28,27 @@ STAGE_VERSION = 1
 
 @dataclass(frozen=True)
 class Convection:
-    """Film coefficient [W/(m^2*K)] to an ambient temperature [K]."""
+    """Film coefficient [W/(m^2*K)] to an ambient temperature [K].
+
+    exponent: with n > 0 the coefficient follows the natural-convection power law
+    h = film_coefficient * (|T - ambient| / reference_difference)^n (e.g. n = 0.25 for laminar flow);
+    reference_difference [K] is the temperature difference at which h equals film_coefficient."""
 
     film_coefficient: float
     ambient: float
+    exponent: float = 0.0
+    reference_difference: float = 1.0
+
+
+@dataclass(frozen=True)
+class Radiation:
+    """Radiation to surroundings: q = emissivity * sigma * (T^4 - surroundings^4); temperatures in K."""
+
+    emissivity: float
+    surroundings: float
+
+
+STEFAN_BOLTZMANN = 5.670374419e-8  # W/(m^2*K^4), CODATA 2018 exact value
 
 
 @dataclass(frozen=True)
@@ -49,7 +66,10 @@ class HeatSpec:
     materials: part -> material (oriented where orthotropic).  power: part -> W, spread over the
     part's meshed volume.  generation: part -> W/m^3, a number or a function of the coordinates
     ``x`` (shape (3, ...), m) for a measured or manufactured distribution.  flux: surface -> HeatFlux.
-    convection: surface -> Convection.  fixed_temperature: surface -> K, a number or a function of x.
+    convection: surface -> Convection.  radiation: surface -> Radiation.
+    fixed_temperature: surface -> K, a number or a function of x.
+    Nonlinear terms (radiation, k(T), power-law convection) are solved by Newton-Raphson with the
+    consistent Jacobian; ``max_iterations`` bounds it, ``tolerance`` is the relative residual.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
     """
 
@@ -58,19 +78,30 @@ class HeatSpec:
     generation: Mapping[str, float | Callable] = field(default_factory=dict)
     flux: Mapping[str, HeatFlux] = field(default_factory=dict)
     convection: Mapping[str, Convection] = field(default_factory=dict)
+    radiation: Mapping[str, Radiation] = field(default_factory=dict)
     fixed_temperature: Mapping[str, float | Callable] = field(default_factory=dict)
     probes: Mapping[str, tuple[float, float, float]] = field(default_factory=dict)
     order: int = 1
     solver: str = "auto"
+    max_iterations: int = 30
+    tolerance: float = 1e-10
+
+
+@LinearForm
+def conduction(v, w):
+    """Residual of conduction: k(T) grad T . grad v."""
+    return dot(mul(w.k, grad(w.t)), grad(v))
 
 
 @BilinearForm
-def conduction(u, v, w):
-    return dot(mul(w.k, grad(u)), grad(v))
+def conduction_tangent(u, v, w):
+    """Its derivative in T: k grad u . grad v + u (dk/dT grad T) . grad v."""
+    return dot(mul(w.k, grad(u)), grad(v)) + u * dot(mul(w.dk, grad(w.t)), grad(v))
 
 
 @BilinearForm
 def film(u, v, w):
+    """Derivative of a surface heat loss q(T) in T: dq/dT u v."""
     return w.h * u * v
 
 
@@ -99,7 +130,7 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
             problems.append(errors.unknown_name("part", part, domain.parts, f"{where}.{key}"))
     claimed: dict[str, str] = {}
     for key, group in (("fixed_temperature", spec.fixed_temperature), ("convection", spec.convection),
-                       ("flux", spec.flux)):
+                       ("radiation", spec.radiation), ("flux", spec.flux)):
         for surface in group:
             if surface not in domain.surfaces:
                 problems.append(errors.unknown_name("surface", surface, domain.surfaces, f"{where}.{key}"))
@@ -132,6 +163,14 @@ def _value_problems(spec: HeatSpec, where: str) -> list[str]:
             bad.append(f"{where}.convection.{name}: film_coefficient must be > 0 W/(m^2*K), got {c.film_coefficient}")
         if not c.ambient >= 0:
             bad.append(f"{where}.convection.{name}: ambient must be >= 0 K, got {c.ambient}")
+    for name, r in spec.radiation.items():
+        if not 0 <= r.emissivity <= 1:
+            bad.append(f"{where}.radiation.{name}: emissivity must lie in 0..1, got {r.emissivity}")
+        if not r.surroundings >= 0:
+            bad.append(f"{where}.radiation.{name}: surroundings must be >= 0 K, got {r.surroundings}")
+    for name, c in spec.convection.items():
+        if c.exponent < 0 or not c.reference_difference > 0:
+            bad.append(f"{where}.convection.{name}: exponent must be >= 0 and reference_difference > 0 K")
     for name, t in spec.fixed_temperature.items():
         if not callable(t) and not t >= 0:
             bad.append(f"{where}.fixed_temperature.{name}: temperature must be >= 0 K, got {t}")
@@ -153,10 +192,6 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     basis = fem.cell_basis(domain, spec.order)
     mesh = domain.mesh
 
-    k = np.stack([spec.materials[p].conductivity_tensor() for p in sorted(domain.parts)])
-    k_elem = k[domain.part_ids()]
-    A = asm(conduction, basis, k=fem.per_element(k_elem, basis))
-
     loads, balance = [], []
     q = np.zeros((len(domain.tetrahedra), basis.X.shape[1]))  # W/m^3 at quadrature points
     x = basis.mapping.F(basis.X)  # (3, nel, nqp) [m]
@@ -174,22 +209,19 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     b = asm(source, basis, q=q)
     for rec in loads:
         balance.append({"name": rec["part"], "kind": "power", "heat_in_W": rec["power_W"]})
-
-    film_bases = {}
-    for name, c in spec.convection.items():
-        fb = fem.facet_basis(domain, spec.order, domain.surfaces[name])
-        film_bases[name] = fb
-        A = A + asm(film, fb, h=c.film_coefficient)
-        b = b + asm(source, fb, q=c.film_coefficient * c.ambient)
     for name, f in spec.flux.items():
         facets = domain.surfaces[name]
         per_area = f.per_area if f.per_area is not None else f.total / domain.facet_areas(facets).sum()
-        fb = fem.facet_basis(domain, spec.order, facets)
-        b = b + asm(source, fb, q=per_area)
-        total = per_area * domain.facet_areas(facets).sum()
-        balance.append({"name": name, "kind": "heat_flux", "heat_in_W": float(total)})
+        b = b + asm(source, fem.facet_basis(domain, spec.order, facets), q=per_area)
+        balance.append({"name": name, "kind": "heat_flux",
+                        "heat_in_W": float(per_area * domain.facet_areas(facets).sum())})
 
-    T = np.zeros(basis.N)
+    losses = [(name, "convection", fem.facet_basis(domain, spec.order, domain.surfaces[name]), c)
+              for name, c in spec.convection.items()]
+    losses += [(name, "radiation", fem.facet_basis(domain, spec.order, domain.surfaces[name]), r)
+               for name, r in spec.radiation.items()]
+
+    T = np.full(basis.N, _initial_temperature(spec))
     owner: dict[str, np.ndarray] = {}
     fixed = np.zeros(0, dtype=np.int64)
     for name, value in spec.fixed_temperature.items():
@@ -198,32 +230,135 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
         T[dofs] = value(basis.doflocs[:, dofs]) if callable(value) else value
         fixed = np.union1d(fixed, dofs)
     free = np.setdiff1d(np.arange(basis.N), fixed)
-    A = A.tocsr()
-    rhs = b[free] - A[free][:, fixed] @ T[fixed]
-    T[free], record = solve_spd(A[free][:, free], rhs, method=spec.solver)
+    problem = _Problem(domain, spec, basis, b, losses)
+    T, record, newton, outside = _newton(problem, T, free, spec, where)
 
-    reaction = A @ T - b  # nodal heat supplied through fixed-temperature dofs [W]
+    reaction = problem.residual(T)  # nodal heat supplied through fixed-temperature dofs [W]
     for name, dofs in owner.items():
         balance.append({"name": name, "kind": "fixed_temperature", "heat_in_W": float(reaction[dofs].sum())})
-    for name, fb in film_bases.items():
-        c = spec.convection[name]
-        out = asm(integral, fb, f=c.film_coefficient * (fb.interpolate(T) - c.ambient))
-        balance.append({"name": name, "kind": "convection", "heat_in_W": -float(out)})
+    for name, kind, fb, c in losses:
+        loss, _ = _surface_loss(kind, c, np.asarray(fb.interpolate(T)))
+        balance.append({"name": name, "kind": kind, "heat_in_W": -float(asm(integral, fb, f=loss))})
 
     parts = _part_statistics(domain, basis, T)
     notices = list(domain.notices) + _validity_notices(spec, parts)
+    if outside:
+        notices.append(f"{outside} quadrature-point temperatures lay outside a conductivity table's range; "
+                       "the end values were held there")
     return TemperatureField(
         temperature=T, order=spec.order, vertices=int(mesh.nvertices), parts=parts, balance=tuple(balance),
         probes=_probe_values(domain, basis, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
-        domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION},
+        domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
+                                              "newton": newton},
     )
+
+
+def _initial_temperature(spec: HeatSpec) -> float:
+    """Uniform start of the Newton iteration: the mean of the prescribed temperatures; the first
+    iterate is then the solution linearised about it (exact for a linear problem)."""
+    values = [v for v in spec.fixed_temperature.values() if not callable(v)]
+    values += [c.ambient for c in spec.convection.values()] + [r.surroundings for r in spec.radiation.values()]
+    return float(np.mean(values)) if values else 293.15
+
+
+def _surface_loss(kind: str, c, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Heat leaving a surface per area [W/m^2] at temperatures t [K], and its derivative [W/(m^2*K)]."""
+    if kind == "radiation":
+        es = c.emissivity * STEFAN_BOLTZMANN
+        return es * (t**4 - c.surroundings**4), 4 * es * t**3
+    d = t - c.ambient
+    if c.exponent == 0:
+        return c.film_coefficient * d, np.full_like(t, c.film_coefficient)
+    # h = h0 (|d| / dref)^n, floored so that the derivative stays finite at d = 0
+    m = np.maximum(np.abs(d), 1e-6 * c.reference_difference) / c.reference_difference
+    h = c.film_coefficient * m**c.exponent
+    return h * d, h * (1 + c.exponent)
+
+
+class _Problem:
+    """Residual R(T) = conduction + surface losses - sources - fluxes, and its Jacobian (the tangent)."""
+
+    def __init__(self, domain, spec, basis, b, losses):
+        self.domain, self.spec, self.basis, self.b, self.losses = domain, spec, basis, b, losses
+        self.part_ids = domain.part_ids()
+        self.ordered = sorted(domain.parts)
+        self.linear = not spec.radiation and all(c.exponent == 0 for c in spec.convection.values()) and \
+            not any(m.conductivity_varies for m in spec.materials.values())
+        self.outside = 0
+
+    def _conductivity(self, t_qp):
+        """K(T) and dK/dT at the quadrature points: (3, 3, nel, nqp)."""
+        k = np.zeros((3, 3) + t_qp.shape)
+        dk = np.zeros_like(k)
+        self.outside = 0
+        for i, part in enumerate(self.ordered):
+            ids = self.domain.parts[part]
+            m = self.spec.materials[part]
+            r = np.asarray(m.axes, dtype=float)
+            kp, dkp, out = m.conductivity_at(t_qp[ids])
+            self.outside += out
+            k[:, :, ids] = np.einsum("ai,a...,aj->ij...", r, kp, r)
+            dk[:, :, ids] = np.einsum("ai,a...,aj->ij...", r, dkp, r)
+        return k, dk
+
+    def residual(self, T):
+        field = self.basis.interpolate(T)
+        k, _ = self._conductivity(np.asarray(field))
+        r = asm(conduction, self.basis, k=k, t=field) - self.b
+        for _, kind, fb, c in self.losses:
+            loss, _ = _surface_loss(kind, c, np.asarray(fb.interpolate(T)))
+            r = r + asm(source, fb, q=loss)
+        return r
+
+    def tangent(self, T):
+        field = self.basis.interpolate(T)
+        k, dk = self._conductivity(np.asarray(field))
+        J = asm(conduction_tangent, self.basis, k=k, dk=dk, t=field)
+        for _, kind, fb, c in self.losses:
+            _, slope = _surface_loss(kind, c, np.asarray(fb.interpolate(T)))
+            J = J + asm(film, fb, h=slope)
+        return J.tocsr()
+
+
+def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
+    """Newton-Raphson with a backtracking line search; stops on the residual and on the update."""
+    history = []
+    r = problem.residual(T)
+    scale = max(float(np.linalg.norm(problem.b[free])), float(np.linalg.norm(r[free])), 1e-30)
+    record = None
+    for iteration in range(1, spec.max_iterations + 1):
+        J = problem.tangent(T)
+        if iteration == 1:  # measure residuals against the size of the terms that cancel in them
+            scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
+        delta, record = solve_spd(J[free][:, free], -r[free], method=spec.solver)
+        step, norm0 = 1.0, float(np.linalg.norm(r[free]))
+        while True:
+            trial = T.copy()
+            trial[free] += step * delta
+            r_trial = problem.residual(trial)
+            if np.linalg.norm(r_trial[free]) <= (1 - 1e-4 * step) * norm0 or step < 1 / 64 or problem.linear:
+                break
+            step /= 2
+        T, r = trial, r_trial
+        res = float(np.linalg.norm(r[free])) / scale
+        update = float(np.abs(step * delta).max(initial=0.0))
+        rate = None
+        if len(history) >= 2 and history[-1]["residual"] > 0 and history[-2]["residual"] > 0 and res > 0:
+            rate = float(np.log(res / history[-1]["residual"]) / np.log(history[-1]["residual"] / history[-2]["residual"]))
+        history.append({"iteration": iteration, "residual": res, "update_K": update, "step": step, "rate": rate})
+        if problem.linear or (res <= spec.tolerance and update <= 1e-10 * float(np.abs(T).max())):
+            return T, record, history, problem.outside
+    lines = ", ".join(f"{h['residual']:.2e}" for h in history)
+    raise errors.SolverError(f"{where}: the nonlinear heat solve did not converge in {spec.max_iterations} "
+                             f"Newton iterations (relative residuals {lines}); check emissivities and "
+                             "conductivity tables, or raise max_iterations")
 
 
 def _check_heat_can_leave(domain, spec: HeatSpec, where: str) -> None:
     """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
     count, label = domain.bodies
-    sinks = list(spec.convection) + list(spec.fixed_temperature)
+    sinks = list(spec.convection) + list(spec.fixed_temperature) + list(spec.radiation)
     reached = np.zeros(count, dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
@@ -265,7 +400,7 @@ def _probe_values(domain, basis, T, probes, where) -> dict[str, float]:
 
 
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:
-    used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux)
+    used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux) | set(spec.radiation)
     out = [s for s in sorted(domain.surfaces) if s not in used]
     boundary = domain.boundary_facets()
     named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] or [np.zeros(0, dtype=np.int64)])
