@@ -173,6 +173,8 @@ def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name,
             radiation=_radiation(stage, where, problems),
             fixed_temperature=stage.fixed_temperature, probes=probes, order=stage.order, solver=stage.solver,
             max_iterations=stage.max_iterations)
+        problems += [errors.unknown_name("surface", a, main.surfaces, f"{where}.adiabatic")
+                     for a in stage.adiabatic if a not in main.surfaces]
         _checked(heat.check, main, spec, where, problems, mats)
         inputs = base | {"version": heat.STAGE_VERSION, "options": stage.model_dump(exclude={"materials"}),
                          "materials": {p: m.reads(*READS["heat"]) for p, m in sorted(mats.items())},
@@ -354,6 +356,8 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
 
 
 def _support_lists(s: StagePlan) -> dict:
+    if s.kind == "heat":
+        return {"adiabatic_intended": list(s.inputs["options"].get("adiabatic", []))}
     if s.kind != "stress":
         return {}
     sups = s.spec.supports

@@ -84,6 +84,8 @@ class HeatStage(Strict):
     radiation: dict[str, RadiationSection] = Field(default_factory=dict)
     fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="surface -> K")
     max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most")
+    adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
+                                 "planes, insulation): not warned about")
 
 
 class MapStage(Strict):

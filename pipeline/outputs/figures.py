@@ -8,6 +8,7 @@ plotter or figure object).  Colour maps are perceptually uniform: temperature "i
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +20,14 @@ STRESS_MAP = "cividis"
 SIZE = (1000, 750)
 
 
+def _headless() -> None:
+    """Without a display, ask VTK for its EGL window before it tries (and warns about) X."""
+    if not os.environ.get("DISPLAY"):
+        os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
+
+
 def _grid(domain, point_data: dict | None = None, cell_data: dict | None = None):
+    _headless()
     import pyvista as pv
 
     cells = np.hstack([np.full((len(domain.tetrahedra), 1), 4), domain.tetrahedra]).ravel()

@@ -69,9 +69,10 @@ def warnings(record, results, domains, limits, required) -> list[str]:
     out = []
     for name, st in record["stages"].items():
         if st["kind"] == "heat":
-            if st["adiabatic_surfaces"]:
-                out.append(f"{name}: adiabatic (no heat leaves): {', '.join(st['adiabatic_surfaces'])}; check that no "
-                           "convection or fixed temperature was forgotten")
+            open_ = [a for a in st["adiabatic_surfaces"] if a not in st.get("adiabatic_intended", [])]
+            if open_:
+                out.append(f"{name}: adiabatic (no heat leaves): {', '.join(open_)}; check that no convection or "
+                           "fixed temperature was forgotten (list intended ones under 'adiabatic')")
             for part, s in st["parts_degC"].items():
                 if part in limits and s["max"] > limits[part]:
                     out.append(f"{name}: part {part} reaches {s['max']:.1f} degC, above its limit {limits[part]:.1f} degC")
