@@ -65,7 +65,8 @@ def temperature_outside(path: Path, domain, field) -> dict:
     """Temperature [degC] on the outer surface."""
     t = celsius(field.at_vertices)
     surface = _grid(domain, {"T": t}).extract_surface(algorithm="dataset_surface")
-    clim = (float(t.min()), float(t.max()))
+    shown = surface.point_data["T"]
+    clim = (float(shown.min()), float(shown.max()))
     _render(path, surface, "T", "temperature [degC]", TEMPERATURE_MAP, clim,
             f"temperature on the outside, {clim[0]:.1f} to {clim[1]:.1f} degC")
     return {"file": path.name, "range": clim, "unit": "degC"}
