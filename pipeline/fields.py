@@ -127,6 +127,7 @@ class StressField:
     safety factor and its criterion).  reactions: support -> force [N] (x, y, z).
     equilibrium: sum of reactions and applied loads [N] and its size relative to the largest force.
     probes: name -> {"displacement_m", "von_mises_Pa"}.  solver: how the system was solved.
+    safety: (n_elements,) element safety factor by its part's criterion (inf where unloaded).
     nodal: part -> (point ids, (n, 6) stress [Pa]): the L2 projection within the part; point ids number
     the vertices first, then (P2) the edge midpoints, as ``displacement`` does.
     """
@@ -142,11 +143,12 @@ class StressField:
     equilibrium: dict
     probes: dict[str, dict]
     solver: SolveRecord
+    safety: np.ndarray = field(default_factory=lambda: np.zeros(0))
     nodal: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
     notices: tuple[str, ...] = ()
     meta: dict = field(default_factory=dict)
 
-    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal")
+    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety")
 
     def nodal_stress(self, part: str, point: int) -> np.ndarray:
         """Projected stress (6,) [Pa] of ``part`` at a point (vertex id, or P2 edge point)."""

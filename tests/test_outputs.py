@@ -34,6 +34,9 @@ def test_vtu_files_hold_the_fields_and_the_pvd_lists_them(demo_run):
     stress_grid = meshio.read(out / "stress.vtu")
     assert stress_grid.point_data["displacement_m"].shape == (len(stress_grid.points), 3)
     assert stress_grid.cell_data["stress_xx_yy_zz_yz_xz_xy_Pa"][0].shape[1] == 6
+    sf = stress_grid.cell_data["safety_factor"][0]
+    lowest = min(f["safety_factor"] for f in record["stages"]["stress"]["parts"].values() if f["safety_factor"])
+    assert sf.min() > 0 and sf.min() >= 0.5 * lowest  # element values vs the projected nodal peak
     ids = stress_grid.cell_data["part_id"][0]
     assert sorted(np.unique(ids)) == sorted(record["mesh"]["part_ids"].values())
     pvd = (out / "results.pvd").read_text()

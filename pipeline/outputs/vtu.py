@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import meshio
+import numpy as np
 
 from ..model.units import celsius
 
@@ -18,10 +19,12 @@ def write(path: Path, domain, result) -> Path:
 
 def write_stress(path: Path, domain, field) -> Path:
     """Displacement at the vertices [m] (3-vector, for warping), per cell: stress [Pa] as 6 components
-    in the order xx, yy, zz, yz, xz, xy, von Mises, Tresca and principal stresses [Pa], and ``part_id``."""
+    in the order xx, yy, zz, yz, xz, xy, von Mises, Tresca and principal stresses [Pa], the element
+    safety factor [-] (capped at 1e6) and ``part_id``."""
     nv = len(domain.points)
     cells = {"part_id": domain.part_ids(), "stress_xx_yy_zz_yz_xz_xy_Pa": field.stress,
-             "von_mises_Pa": field.von_mises, "tresca_Pa": field.tresca, "principal_Pa": field.principal}
+             "von_mises_Pa": field.von_mises, "tresca_Pa": field.tresca, "principal_Pa": field.principal,
+             "safety_factor": np.minimum(field.safety, 1e6)}  # capped: unloaded cells would be infinite
     return _write(path, domain, {"displacement_m": field.displacement[:nv]}, cells)
 
 

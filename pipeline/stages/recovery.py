@@ -83,6 +83,15 @@ def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int):
     elements["von_mises"] = constitutive.von_mises(s)
     elements["principal"] = constitutive.principal(s)
     elements["tresca"] = elements["principal"][:, 0] - elements["principal"][:, 2]
+    elements["safety"] = np.full(nel, np.inf)
+    for part, model in models.items():
+        ids, m = model.basis.tind, model.material
+        if m.brittle:
+            driver, strength = np.maximum(elements["principal"][ids, 0], 0.0), m.tensile_strength
+        else:
+            driver, strength = elements["von_mises"][ids], m.yield_strength or m.tensile_strength
+        with np.errstate(divide="ignore"):
+            elements["safety"][ids] = np.where(driver > 0, strength / np.maximum(driver, 1e-300), np.inf)
     return parts, elements, nodal_by_part
 
 

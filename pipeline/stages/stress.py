@@ -197,7 +197,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     probes = _probes(domain, full, u, elements["von_mises"], spec.probes, where)
     return StressField(
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
-        tresca=elements["tresca"], principal=elements["principal"], parts=parts, reactions=reactions,
+        tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
               "stress_order": "xx, yy, zz, yz, xz, xy"},
