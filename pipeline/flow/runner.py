@@ -342,6 +342,12 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
         solver = getattr(result, "solver", None)
         detail = (f"; {solver.method} solve of {solver.unknowns} unknowns, {solver.iterations} iterations, "
                   f"residual {solver.residual:.1e}") if solver and status == "computed" else ""
+        newton = getattr(result, "meta", {}).get("newton", []) if status == "computed" else []
+        if len(newton) > 1:  # a nonlinear solve: show every iteration
+            for h in newton:
+                rate = "" if h["rate"] is None else f", rate {h['rate']:.2f}"
+                say(f"{s.name}: Newton {h['iteration']}: residual {h['residual']:.2e}, update {h['update_K']:.2e} K, "
+                    f"step {h['step']:g}{rate}")
         say(f"{s.name}: {status} in {time.perf_counter() - t0:.2f} s{detail}")
         entry |= {"status": status, "reason": reason, "seconds": time.perf_counter() - t0, "inputs": s.inputs}
         entry |= summary.figures(s.kind, result) | _support_lists(s)
