@@ -7,11 +7,11 @@ Transfer, 6th ed., Wiley 2007 (section numbers from memory; they can differ betw
 
 from __future__ import annotations
 
+import meshes
 import numpy as np
 import pytest
 from skfem import Basis, ElementTetP1, ElementTetP2, MeshTet
 
-import meshes
 from pipeline import errors
 from pipeline.model import mesh as mesh_mod
 from pipeline.model.materials import from_record
@@ -46,7 +46,7 @@ def test_slab_between_fixed_temperatures(order):
     d = domain_of(m)
     f = heat.solve(d, heat.HeatSpec({"body": material(k)}, fixed_temperature={"xmin": t1, "xmax": t2},
                                     order=order))
-    x = heat.fem.cell_basis(d, order).doflocs[0]
+    x = heat.fem.space(d, order).doflocs[0]
     np.testing.assert_allclose(f.temperature, t1 + (t2 - t1) * x / L, rtol=0, atol=1e-9)
     assert balance(f, name="xmin") == pytest.approx(k * A * (t1 - t2) / L, rel=1e-10)
     assert f.imbalance < 1e-10
@@ -62,7 +62,7 @@ def test_slab_with_uniform_generation():
                                     fixed_temperature={"xmin": ts, "xmax": ts}, order=2,
                                     probes={"centre": (0.0, 0.002, 0.002)}))
     assert f.probes["centre"] == pytest.approx(ts + q * L**2 / (2 * k), abs=1e-8)  # 25 K above T_s
-    x = heat.fem.cell_basis(d, 2).doflocs[0]
+    x = heat.fem.space(d, 2).doflocs[0]
     np.testing.assert_allclose(f.temperature, ts + q * L**2 / (2 * k) * (1 - x**2 / L**2), atol=1e-8)
     assert f.imbalance < 1e-10
     assert f.loads[0]["power_W"] == pytest.approx(q * 2 * L * 0.004**2, rel=1e-12)

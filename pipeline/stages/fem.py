@@ -1,41 +1,33 @@
-"""scikit-fem plumbing shared by the stages: elements, bases and per-element coefficient arrays."""
+"""Plumbing shared by the stages: spaces and geometry cached on the domain, probes, per-part values."""
 
 from __future__ import annotations
 
 import numpy as np
 
 from .. import errors
+from . import kernels
 
 ORDERS = (1, 2)
 
 
 def element(order: int):
-    """Lagrange tetrahedron of the given order (1 or 2) on the linear geometry."""
-    from skfem import ElementTetP1, ElementTetP2
-
-    return {1: ElementTetP1, 2: ElementTetP2}[order]()
+    """scikit-fem's Lagrange tetrahedron of the given order (1 or 2), for reference assembly."""
+    return kernels._element(order)
 
 
-def cell_basis(domain, order: int):
-    """Volume basis; quadrature of degree 2*order integrates mass-type terms exactly."""
-    from skfem import Basis
-
-    return Basis(domain.mesh, element(order), intorder=2 * order)
-
-
-def facet_basis(domain, order: int, facets: np.ndarray):
-    """Basis on the given boundary facets, exact for products of two fields of ``order``."""
-    from skfem import FacetBasis
-
-    return FacetBasis(domain.mesh, element(order), facets=facets, intorder=2 * order)
+def space(domain, order: int) -> kernels.Space:
+    """The scalar P``order`` space of ``domain`` (built once per domain)."""
+    key = f"space{order}"
+    if key not in domain._cache:
+        domain._cache[key] = kernels.Space(domain.mesh, order)
+    return domain._cache[key]
 
 
-def per_element(values: np.ndarray, basis) -> np.ndarray:
-    """Broadcast per-element values (nel, ...) to quadrature points: (..., nel, nqp)."""
-    nqp = basis.X.shape[1]
-    values = np.asarray(values, dtype=float)
-    moved = np.moveaxis(values, 0, -1)  # (..., nel)
-    return np.repeat(moved[..., None], nqp, axis=-1)
+def geometry(domain) -> kernels.Geometry:
+    """Affine maps of the domain's tetrahedra (built once per domain)."""
+    if "geometry" not in domain._cache:
+        domain._cache["geometry"] = kernels.Geometry(domain.mesh)
+    return domain._cache["geometry"]
 
 
 def part_values(domain, per_part: dict[str, float], default: float = 0.0) -> np.ndarray:
@@ -46,17 +38,34 @@ def part_values(domain, per_part: dict[str, float], default: float = 0.0) -> np.
     return out
 
 
-def probe_points(domain, probes, where: str) -> tuple[list[str], np.ndarray]:
-    """Names and (3, n) coordinates [m] of probes; every probe outside the mesh is an ``InputError``."""
+def probe_points(domain, probes, where: str) -> tuple[list[str], np.ndarray, np.ndarray]:
+    """Names, (3, n) coordinates [m] and containing elements of probes; a probe outside the mesh is an
+    ``InputError``."""
     names = list(probes)
     points = np.array([probes[n] for n in names], dtype=float).reshape(-1, 3).T
     finder = domain.mesh.element_finder()
-    outside = []
+    outside, cells = [], np.zeros(len(names), dtype=np.int64)
     for i, name in enumerate(names):
         try:
-            finder(*points[:, i : i + 1])
+            cells[i] = finder(*points[:, i : i + 1])[0]
         except ValueError:
             outside.append(f"{where}: probe '{name}' at {points[:, i].tolist()} m is outside the mesh")
     if outside:
         raise errors.InputError(outside)
-    return names, points
+    return names, points, cells
+
+
+def probe_weights(domain, order: int, points: np.ndarray, cells: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Dofs (nb, n) and shape-function values (nb, n) of P``order`` at points (3, n) in ``cells``."""
+    geom = geometry(domain)
+    local = np.einsum("nij,jn->in", geom.inv[cells], points - geom.origin[cells].T)  # reference coords
+    phi, _ = kernels._shape(order, local)
+    return space(domain, order).element_dofs[:, cells], phi
+
+
+def check_probes(domain, probes, where: str, problems: list[str]) -> None:
+    """Append the message of every probe outside the mesh to ``problems``."""
+    try:
+        probe_points(domain, probes, where)
+    except errors.InputError as exc:
+        problems += exc.problems

@@ -13,15 +13,12 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
-from skfem import BilinearForm, Functional, LinearForm, asm
-from skfem.helpers import dot, grad, mul
 
 from .. import errors
 from ..fields import TemperatureField
 from ..model.materials import Material
 from ..model.units import celsius
-from . import fem
-from .solvers import solve_spd
+from . import fem, kernels, solvers
 
 STAGE_VERSION = 1
 
@@ -71,6 +68,8 @@ class HeatSpec:
     Nonlinear terms (radiation, k(T), power-law convection) are solved by Newton-Raphson with the
     consistent Jacobian; ``max_iterations`` bounds it, ``tolerance`` is the relative residual.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
+    memory_limit: bytes the stage may use (default: what the machine has available); a model whose
+    estimate exceeds it is refused before assembly.
     """
 
     materials: Mapping[str, Material]
@@ -85,34 +84,7 @@ class HeatSpec:
     solver: str = "auto"
     max_iterations: int = 30
     tolerance: float = 1e-10
-
-
-@LinearForm
-def conduction(v, w):
-    """Residual of conduction: k(T) grad T . grad v."""
-    return dot(mul(w.k, grad(w.t)), grad(v))
-
-
-@BilinearForm
-def conduction_tangent(u, v, w):
-    """Its derivative in T: k grad u . grad v + u (dk/dT grad T) . grad v."""
-    return dot(mul(w.k, grad(u)), grad(v)) + u * dot(mul(w.dk, grad(w.t)), grad(v))
-
-
-@BilinearForm
-def film(u, v, w):
-    """Derivative of a surface heat loss q(T) in T: dq/dT u v."""
-    return w.h * u * v
-
-
-@LinearForm
-def source(v, w):
-    return w.q * v
-
-
-@Functional
-def integral(w):
-    return w.f
+    memory_limit: float | None = None
 
 
 def check(domain, spec: HeatSpec, where: str = "heat") -> None:
@@ -145,10 +117,7 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
                     problems.append(f"{where}.{key}: surface '{surface}' has {inner} facets inside the body, "
                                     "not on its boundary; convection and flux need a boundary surface")
     problems += _value_problems(spec, where)
-    try:
-        fem.probe_points(domain, spec.probes, where)
-    except errors.InputError as exc:
-        problems += exc.problems
+    fem.check_probes(domain, spec.probes, where, problems)
     if problems:
         raise errors.InputError(problems)
 
@@ -189,65 +158,59 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     check(domain, spec, where)
     _check_heat_can_leave(domain, spec, where)
     start = time.perf_counter()
-    basis = fem.cell_basis(domain, spec.order)
-    mesh = domain.mesh
+    solvers.check_memory(fem.space(domain, spec.order).N, spec.order, 1, spec.solver, spec.memory_limit, where)
+    problem = _Problem(domain, spec)
+    space, geom, ref = problem.space, problem.geom, problem.ref
 
     loads, balance = [], []
-    q = np.zeros((len(domain.tetrahedra), basis.X.shape[1]))  # W/m^3 at quadrature points
-    x = basis.mapping.F(basis.X)  # (3, nel, nqp) [m]
+    q = np.zeros((len(domain.tetrahedra), len(ref.weights)))  # W/m^3 at quadrature points
     for part, power in spec.power.items():
         volume = domain.part_volume(part)
         q[domain.parts[part]] += power / volume
         loads.append({"part": part, "power_W": power, "generation_W_per_m3": power / volume, "volume_m3": volume})
     for part, gen in spec.generation.items():
         ids = domain.parts[part]
-        g = gen(x[:, ids]) if callable(gen) else np.full(basis.dx[ids].shape, float(gen))
+        g = gen(geom.points(ref, ids)) if callable(gen) else np.full((len(ids), len(ref.weights)), float(gen))
         q[ids] += g
         volume = domain.part_volume(part)
-        power = float(np.sum(g * basis.dx[ids]))
+        power = float(np.sum(g * geom.det[ids][:, None] * ref.weights))
         loads.append({"part": part, "power_W": power, "generation_W_per_m3": power / volume, "volume_m3": volume})
-    b = asm(source, basis, q=q)
+    b = kernels.load(space, geom, np.arange(len(domain.tetrahedra)), q, ref) if loads else np.zeros(space.N)
     for rec in loads:
         balance.append({"name": rec["part"], "kind": "power", "heat_in_W": rec["power_W"]})
     for name, f in spec.flux.items():
-        facets = domain.surfaces[name]
-        per_area = f.per_area if f.per_area is not None else f.total / domain.facet_areas(facets).sum()
-        b = b + asm(source, fem.facet_basis(domain, spec.order, facets), q=per_area)
-        balance.append({"name": name, "kind": "heat_flux",
-                        "heat_in_W": float(per_area * domain.facet_areas(facets).sum())})
+        facets = kernels.Facets(space, geom, domain.surfaces[name], kernels.degree_mass(spec.order))
+        per_area = f.per_area if f.per_area is not None else f.total / facets.area.sum()
+        b = b + facets.load(per_area)
+        balance.append({"name": name, "kind": "heat_flux", "heat_in_W": float(per_area * facets.area.sum())})
+    problem.b = b
 
-    losses = [(name, "convection", fem.facet_basis(domain, spec.order, domain.surfaces[name]), c)
-              for name, c in spec.convection.items()]
-    losses += [(name, "radiation", fem.facet_basis(domain, spec.order, domain.surfaces[name]), r)
-               for name, r in spec.radiation.items()]
-
-    T = np.full(basis.N, _initial_temperature(spec))
+    T = np.full(space.N, _initial_temperature(spec))
     owner: dict[str, np.ndarray] = {}
     fixed = np.zeros(0, dtype=np.int64)
     for name, value in spec.fixed_temperature.items():
-        dofs = np.setdiff1d(basis.get_dofs(domain.surfaces[name]).all(), fixed)
+        dofs = np.setdiff1d(space.facet_dofs(domain.surfaces[name]), fixed)
         owner[name] = dofs
-        T[dofs] = value(basis.doflocs[:, dofs]) if callable(value) else value
+        T[dofs] = value(space.doflocs[:, dofs]) if callable(value) else value
         fixed = np.union1d(fixed, dofs)
-    free = np.setdiff1d(np.arange(basis.N), fixed)
-    problem = _Problem(domain, spec, basis, b, losses)
+    free = np.setdiff1d(np.arange(space.N), fixed)
     T, record, newton, outside = _newton(problem, T, free, spec, where)
 
     reaction = problem.residual(T)  # nodal heat supplied through fixed-temperature dofs [W]
     for name, dofs in owner.items():
         balance.append({"name": name, "kind": "fixed_temperature", "heat_in_W": float(reaction[dofs].sum())})
-    for name, kind, fb, c in losses:
-        loss, _ = _surface_loss(kind, c, np.asarray(fb.interpolate(T)))
-        balance.append({"name": name, "kind": kind, "heat_in_W": -float(asm(integral, fb, f=loss))})
+    for name, kind, facets, c in problem.losses:
+        loss, _ = _surface_loss(kind, c, facets.values(T))
+        balance.append({"name": name, "kind": kind, "heat_in_W": -facets.integral(loss)})
 
-    parts = _part_statistics(domain, basis, T)
+    parts = _part_statistics(domain, problem, T)
     notices = list(domain.notices) + _validity_notices(spec, parts)
     if outside:
         notices.append(f"{outside} quadrature-point temperatures lay outside a conductivity table's range; "
                        "the end values were held there")
     return TemperatureField(
-        temperature=T, order=spec.order, vertices=int(mesh.nvertices), parts=parts, balance=tuple(balance),
-        probes=_probe_values(domain, basis, T, spec.probes, where), loads=tuple(loads),
+        temperature=T, order=spec.order, vertices=int(domain.mesh.nvertices), parts=parts, balance=tuple(balance),
+        probes=_probe_values(domain, spec.order, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
         domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
                                               "newton": newton},
@@ -277,47 +240,86 @@ def _surface_loss(kind: str, c, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 class _Problem:
-    """Residual R(T) = conduction + surface losses - sources - fluxes, and its Jacobian (the tangent)."""
+    """Residual R(T) = conduction + surface losses - sources - fluxes, and its Jacobian (the tangent).
 
-    def __init__(self, domain, spec, basis, b, losses):
-        self.domain, self.spec, self.basis, self.b, self.losses = domain, spec, basis, b, losses
-        self.part_ids = domain.part_ids()
+    Quadrature: degree 2p on cells and facets, exact for sources, films and a conductivity that is
+    constant per part (then the conduction matrix is assembled once, with the exact degree 2(p-1));
+    radiation and k(T) are not polynomial and use the same degree 2p."""
+
+    def __init__(self, domain, spec):
+        self.domain, self.spec = domain, spec
+        self.space, self.geom = fem.space(domain, spec.order), fem.geometry(domain)
+        self.ref = kernels.reference(spec.order, kernels.degree_mass(spec.order))
         self.ordered = sorted(domain.parts)
+        self.b = np.zeros(self.space.N)
+        degree = kernels.degree_mass(spec.order)
+        self.losses = [(name, "convection", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), c)
+                       for name, c in spec.convection.items()]
+        self.losses += [(name, "radiation", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), r)
+                        for name, r in spec.radiation.items()]
+        self.varies = any(m.conductivity_varies for m in spec.materials.values())
         self.linear = not spec.radiation and all(c.exponent == 0 for c in spec.convection.values()) and \
-            not any(m.conductivity_varies for m in spec.materials.values())
+            not self.varies
         self.outside = 0
+        self._constant = None if self.varies else self._conduction_matrix()
+
+    def _conduction_matrix(self):
+        """Conduction matrix for conductivities constant per part (exact quadrature)."""
+        out = kernels.Assembler(self.space.N)
+        for part in self.ordered:
+            k = self.spec.materials[part].conductivity_tensor()
+            kernels.conduction(self.space, self.geom, self.domain.parts[part], k,
+                               kernels.degree_stiffness(self.spec.order), out)
+        return out.matrix()
 
     def _conductivity(self, t_qp):
-        """K(T) and dK/dT at the quadrature points: (3, 3, nel, nqp)."""
-        k = np.zeros((3, 3) + t_qp.shape)
+        """K(T) and dK/dT at the quadrature points: (nel, 3, 3, nq)."""
+        k = np.zeros(t_qp.shape[:1] + (3, 3) + t_qp.shape[1:])
         dk = np.zeros_like(k)
         self.outside = 0
-        for i, part in enumerate(self.ordered):
+        for part in self.ordered:
             ids = self.domain.parts[part]
             m = self.spec.materials[part]
             r = np.asarray(m.axes, dtype=float)
             kp, dkp, out = m.conductivity_at(t_qp[ids])
             self.outside += out
-            k[:, :, ids] = np.einsum("ai,a...,aj->ij...", r, kp, r)
-            dk[:, :, ids] = np.einsum("ai,a...,aj->ij...", r, dkp, r)
+            k[ids] = np.einsum("ai,anq,aj->nijq", r, kp, r)
+            dk[ids] = np.einsum("ai,anq,aj->nijq", r, dkp, r)
         return k, dk
 
+    def _field(self, T):
+        ids = np.arange(len(self.domain.tetrahedra))
+        return kernels.interpolate(self.space, self.geom, ids, T, self.ref, grad=True)
+
     def residual(self, T):
-        field = self.basis.interpolate(T)
-        k, _ = self._conductivity(np.asarray(field))
-        r = asm(conduction, self.basis, k=k, t=field) - self.b
-        for _, kind, fb, c in self.losses:
-            loss, _ = _surface_loss(kind, c, np.asarray(fb.interpolate(T)))
-            r = r + asm(source, fb, q=loss)
+        if self._constant is not None:
+            r = self._constant @ T - self.b
+        else:
+            t, g = self._field(T)
+            k, _ = self._conductivity(t)
+            flux = np.einsum("nijq,njq->niq", k, g)
+            r = kernels.flux_load(self.space, self.geom, np.arange(len(t)), flux, self.ref) - self.b
+        for _, kind, facets, c in self.losses:
+            loss, _ = _surface_loss(kind, c, facets.values(T))
+            r = r + facets.load(loss)
         return r
 
     def tangent(self, T):
-        field = self.basis.interpolate(T)
-        k, dk = self._conductivity(np.asarray(field))
-        J = asm(conduction_tangent, self.basis, k=k, dk=dk, t=field)
-        for _, kind, fb, c in self.losses:
-            _, slope = _surface_loss(kind, c, np.asarray(fb.interpolate(T)))
-            J = J + asm(film, fb, h=slope)
+        if self._constant is not None:
+            J = self._constant
+        else:
+            t, g = self._field(T)
+            k, dk = self._conductivity(t)
+            ids, degree = np.arange(len(t)), kernels.degree_mass(self.spec.order)
+            out = kernels.conduction(self.space, self.geom, ids, k, degree)
+            kernels.advection(self.space, self.geom, ids, np.einsum("nijq,njq->niq", dk, g), degree, out)
+            J = out.matrix()
+        if self.losses:
+            films = kernels.Assembler(self.space.N)
+            for _, kind, facets, c in self.losses:
+                _, slope = _surface_loss(kind, c, facets.values(T))
+                facets.mass(slope, films)
+            J = J + films.matrix()
         return J.tocsr()
 
 
@@ -331,7 +333,7 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         J = problem.tangent(T)
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
-        delta, record = solve_spd(J[free][:, free], -r[free], method=spec.solver)
+        delta, record = solvers.solve_spd(J[free][:, free], -r[free], method=spec.solver)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()
@@ -380,23 +382,25 @@ def _check_heat_can_leave(domain, spec: HeatSpec, where: str) -> None:
         raise errors.PhysicsError(problems)
 
 
-def _part_statistics(domain, basis, T: np.ndarray) -> dict[str, dict[str, float]]:
-    volumes = integral.elemental(basis, f=np.ones_like(basis.dx))
-    weighted = integral.elemental(basis, f=basis.interpolate(T))
+def _part_statistics(domain, problem: _Problem, T: np.ndarray) -> dict[str, dict[str, float]]:
+    """Per part: min and max over its dofs, volume mean [K]."""
+    space, geom, ref = problem.space, problem.geom, problem.ref
     out = {}
     for name in sorted(domain.parts):
         ids = domain.parts[name]
-        values = T[np.unique(basis.element_dofs[:, ids])]
-        out[name] = {"min": float(values.min()), "max": float(values.max()),
-                     "mean": float(weighted[ids].sum() / volumes[ids].sum())}
+        values = T[np.unique(space.element_dofs[:, ids])]
+        weights = geom.det[ids][:, None] * ref.weights
+        mean = float(np.sum(weights * kernels.interpolate(space, geom, ids, T, ref)) / weights.sum())
+        out[name] = {"min": float(values.min()), "max": float(values.max()), "mean": mean}
     return out
 
 
-def _probe_values(domain, basis, T, probes, where) -> dict[str, float]:
+def _probe_values(domain, order, T, probes, where) -> dict[str, float]:
     if not probes:
         return {}
-    names, points = fem.probe_points(domain, probes, where)
-    return {n: float(v) for n, v in zip(names, basis.probes(points) @ T)}
+    names, points, cells = fem.probe_points(domain, probes, where)
+    dofs, phi = fem.probe_weights(domain, order, points, cells)
+    return {n: float(v) for n, v in zip(names, np.sum(phi * T[dofs], axis=0))}
 
 
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:

@@ -63,7 +63,7 @@ def transfer(field_: TemperatureField, source_domain, target_domain, spec: MapSp
     if _same_mesh(source_domain, target_domain):
         return _load(target_domain, field_.temperature.copy(), field_.order, spec,
                      base | {"method": "same mesh", "outside": 0, "max_distance_m": 0.0}, where)
-    points = fem.cell_basis(target_domain, spec.order).doflocs.T
+    points = fem.space(target_domain, spec.order).doflocs.T
     values, outside, distance = _interpolate_on_mesh(source_domain, field_, points, spec, target_domain, where)
     return _load(target_domain, values, spec.order, spec,
                  base | {"method": "cross mesh", "outside": outside, "max_distance_m": distance}, where)
@@ -72,7 +72,7 @@ def transfer(field_: TemperatureField, source_domain, target_domain, spec: MapSp
 def from_function(domain, temperature: Callable, spec: MapSpec = MapSpec(), order: int = 2,
                   where: str = "map") -> ThermalLoad:
     """A load from a temperature given as a function of x (shape (3, n), m) -> K, e.g. a benchmark field."""
-    values = np.asarray(temperature(fem.cell_basis(domain, order).doflocs), dtype=float)
+    values = np.asarray(temperature(fem.space(domain, order).doflocs), dtype=float)
     return _load(domain, values, order, spec, {"method": "function", "outside": 0, "max_distance_m": 0.0}, where)
 
 
@@ -91,7 +91,7 @@ def from_file(path: str | Path, domain, spec: MapSpec = MapSpec(), array: str | 
     points = points * factor
     if temperature_unit == "degC":
         values = values + ZERO_CELSIUS
-    targets = fem.cell_basis(domain, spec.order).doflocs.T
+    targets = fem.space(domain, spec.order).doflocs.T
     mapped, outside, distance = _interpolate_cloud(points, values, targets, spec, domain, where, path)
     return _load(domain, mapped, spec.order, spec,
                  {"method": "external file", "file": str(path), "source_min_K": float(values.min()),
@@ -108,9 +108,9 @@ def _interpolate_on_mesh(source, field_, points, spec, target, where):
     cells, bary, distance = _locate(source.points, source.tetrahedra, points)
     tolerance = spec.tolerance if spec.tolerance is not None else _default_tolerance(source)
     _refuse_far(distance, tolerance, points, target, where)
-    basis = fem.cell_basis(source, field_.order)
+    space = fem.space(source, field_.order)
     phi = lagrange(field_.order, bary)  # (n, n_local)
-    values = np.einsum("nl,ln->n", phi, field_.temperature[basis.element_dofs[:, cells]])
+    values = np.einsum("nl,ln->n", phi, field_.temperature[space.element_dofs[:, cells]])
     outside = int((distance > 0).sum())
     return values, outside, float(distance.max(initial=0.0))
 

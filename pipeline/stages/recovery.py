@@ -14,70 +14,62 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse.linalg as spla
-from skfem import BilinearForm, LinearForm, asm
 
-from . import constitutive, fem
+from . import constitutive, fem, kernels
 
 
 @dataclass
 class PartModel:
-    """What recovery needs of one part: its vector basis, C, alpha, temperatures at quadrature points."""
+    """What recovery needs of one part: its element ids, C [Pa], alpha [1/K] (Voigt) and material."""
 
-    basis: object
+    ids: np.ndarray
     c: np.ndarray
     alpha: np.ndarray
-    temperature: object
-    reference: np.ndarray | None
     material: object
 
 
-@BilinearForm
-def mass(u, v, w):
-    return u * v
+def temperature_rise(domain, load, ids, ref: kernels.Reference) -> np.ndarray:
+    """(n, nq) T - T_ref [K] at ``ref``'s points of the elements ``ids``."""
+    t = kernels.interpolate(fem.space(domain, load.order), fem.geometry(domain), ids, load.temperature,
+                            kernels.with_order(ref, load.order))
+    return t - load.reference[ids][:, None]
 
 
-@LinearForm
-def moment(v, w):
-    return w.s * v
+def stress_at_points(domain, model: PartModel, u: np.ndarray, order: int, load, ref) -> np.ndarray:
+    """(n_elements_of_part, 6, nq) stresses [Pa] at ``ref``'s points."""
+    eps = kernels.strains(fem.space(domain, order), fem.geometry(domain), model.ids, u, ref)
+    if load is not None:
+        eps = eps - np.einsum("s,nq->nsq", model.alpha, temperature_rise(domain, load, model.ids, ref))
+    return np.einsum("st,ntq->nsq", model.c, eps)
 
 
-def stress_at_points(model: PartModel, u: np.ndarray) -> np.ndarray:
-    """(6, n_elements_of_part, n_qp) stresses [Pa]."""
-    grad = model.basis.interpolate(u).grad
-    eps = constitutive.voigt(0.5 * (grad + np.transpose(grad, (1, 0, 2, 3))))
-    if model.temperature is not None:
-        eps = eps - np.einsum("i,...->i...", model.alpha, model.temperature - model.reference)
-    return np.einsum("ij,j...->i...", model.c, eps)
-
-
-def nodal_stress(model: PartModel, sigma: np.ndarray, order: int) -> tuple[np.ndarray, np.ndarray]:
+def nodal_stress(domain, model: PartModel, sigma: np.ndarray, order: int, ref) -> tuple[np.ndarray, np.ndarray]:
     """L2 projection of the six components onto P``order`` on the part; returns dof ids and (6, n)."""
-    scalar = model.basis.with_element(fem.element(order))
-    M = asm(mass, scalar).tocsr()
-    dofs = np.unique(scalar.element_dofs)
+    space, geom = fem.space(domain, order), fem.geometry(domain)
+    M = kernels.mass(space, geom, model.ids, 1.0, kernels.degree_mass(order)).matrix()
+    dofs = np.unique(space.element_dofs[:, model.ids])
     M = M[dofs][:, dofs]
     diag = M.diagonal()
     out = np.empty((6, len(dofs)))
     for i in range(6):
-        rhs = asm(moment, scalar, s=sigma[i])[dofs]
+        rhs = kernels.load(space, geom, model.ids, sigma[:, i], ref)[dofs]
         x, info = spla.cg(M, rhs, rtol=1e-12, maxiter=500, M=spla.LinearOperator(M.shape, lambda r: r / diag))
         out[i] = x if info == 0 else spla.spsolve(M.tocsc(), rhs)
     return dofs, out
 
 
-def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int):
+def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int, load=None):
     """Per-part figures, per-element arrays (stress, von_mises, tresca, principal) and nodal stresses."""
     nel = len(domain.tetrahedra)
+    ref = kernels.reference(order, kernels.degree_mass(order))
     elements = {"stress": np.zeros((nel, 6))}
     parts, nodal_by_part = {}, {}
     for part, model in models.items():
-        sigma = stress_at_points(model, u)
-        dx = model.basis.dx
-        ids = model.basis.tind
-        elements["stress"][ids] = (np.sum(sigma * dx, axis=2) / dx.sum(axis=1)).T
-        dofs, nodal = nodal_stress(model, sigma, order)
-        where = model.basis.with_element(fem.element(order)).doflocs[:, dofs].T
-        parts[part] = _figures(model.material, nodal, where, sigma)
+        sigma = stress_at_points(domain, model, u, order, load, ref)
+        elements["stress"][model.ids] = np.einsum("nsq,q->ns", sigma, ref.weights) / ref.weights.sum()
+        dofs, nodal = nodal_stress(domain, model, sigma, order, ref)
+        where = fem.space(domain, order).doflocs[:, dofs].T
+        parts[part] = _figures(model.material, nodal, where, np.moveaxis(sigma, 1, 0))
         nodal_by_part[part] = (dofs, nodal.T)
     s = elements["stress"].T
     elements["von_mises"] = constitutive.von_mises(s)
@@ -85,7 +77,7 @@ def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int):
     elements["tresca"] = elements["principal"][:, 0] - elements["principal"][:, 2]
     elements["safety"] = np.full(nel, np.inf)
     for part, model in models.items():
-        ids, m = model.basis.tind, model.material
+        ids, m = model.ids, model.material
         if m.brittle:
             driver, strength = np.maximum(elements["principal"][ids, 0], 0.0), m.tensile_strength
         else:

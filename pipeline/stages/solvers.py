@@ -1,11 +1,16 @@
-"""Linear solves for symmetric positive definite systems: sparse direct below a size, AMG-CG above.
+"""Linear solves for symmetric positive definite systems, chosen by size, with reusable preparations.
 
-The choice and its outcome are recorded in ``SolveRecord`` so that every result says how it was got.
+``prepare(A)`` factorises (sparse direct, SuperLU with iterative refinement) or builds the smoothed-
+aggregation AMG hierarchy (pyamg, rigid-body modes as near-null space for elasticity) once;
+``Prepared.solve(b)`` then serves any number of right-hand sides on the same matrix.  Every solve
+returns a ``SolveRecord``: method, unknowns, iterations, relative residual and its history, seconds.
+``estimate_memory`` and ``check_memory`` refuse a model that cannot fit before it is assembled.
 """
 
 from __future__ import annotations
 
 import logging
+import os
 import time
 from dataclasses import asdict, dataclass, field
 
@@ -17,15 +22,22 @@ from .. import errors
 
 log = logging.getLogger(__name__)
 
-#: Unknowns above which the automatic choice is AMG-preconditioned CG: SuperLU's fill-in grows
-#: quickly in 3-D (measured on a 2-core machine: about 1.4 s at 1e4 and 134 s at 1e5 unknowns).
+#: Unknowns up to which "auto" takes the sparse direct solver; above it AMG-preconditioned CG.
+#: benchmarks/solvers.py measures both (docs/performance.md): AMG is faster from a few thousand
+#: unknowns on compact bodies, but smoothed aggregation converges poorly on slender P2 models (a
+#: 20:1 cantilever with 4 x 4 elements across: residual 3e-6 after 300 iterations), so small models,
+#: where SuperLU takes about a second, go to the direct solver.
 DIRECT_LIMIT = 20_000
+#: Unknowns up to which an "auto" AMG solve that fails is retried with the direct solver.
+FALLBACK_LIMIT = 200_000
 METHODS = ("auto", "direct", "amg")
+REFINEMENT_STEPS = 3
 
 
 @dataclass(frozen=True)
 class SolveRecord:
-    """How a system was solved: method, unknowns, iterations, relative residual, wall time [s]."""
+    """How a system was solved: method, unknowns, iterations, relative residual, wall time [s]
+    (``setup_seconds`` of it spent factorising or building the hierarchy, shared by reuses)."""
 
     method: str
     unknowns: int
@@ -33,6 +45,8 @@ class SolveRecord:
     residual: float
     seconds: float
     history: tuple[float, ...] = field(default=())
+    setup_seconds: float = 0.0
+    reused: bool = False
 
     def to_dict(self) -> dict:
         out = asdict(self)
@@ -40,34 +54,165 @@ class SolveRecord:
         return out
 
 
-def solve_spd(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float = 1e-10,
-              near_null: np.ndarray | None = None, maxiter: int = 500) -> tuple[np.ndarray, SolveRecord]:
-    """Solve ``A x = b`` for a symmetric positive definite ``A``; returns x and its record."""
+def choose(n: int, method: str = "auto") -> str:
+    """The method for ``n`` unknowns: "direct" up to DIRECT_LIMIT, else "amg", unless one is asked for."""
     if method not in METHODS:
         raise errors.InputError(f"solver method {method!r} is not known; valid: {', '.join(METHODS)}")
-    n = int(A.shape[0])
-    if method == "auto":
-        method = "direct" if n <= DIRECT_LIMIT else "amg"
-    start = time.perf_counter()
-    bnorm = float(np.linalg.norm(b)) or 1.0
-    history: list[float] = []
-    if method == "direct":
-        x = spla.spsolve(A.tocsc(), b)
-        iterations = 1
-    else:
-        import pyamg
+    return ("direct" if n <= DIRECT_LIMIT else "amg") if method == "auto" else method
 
-        ml = pyamg.smoothed_aggregation_solver(A.tocsr(), B=near_null)
-        x = ml.solve(b, tol=rtol, accel="cg", maxiter=maxiter, residuals=history)
-        iterations = max(len(history) - 1, 0)
-    residual = float(np.linalg.norm(A @ x - b)) / bnorm
-    record = SolveRecord(method, n, iterations, residual, time.perf_counter() - start,
-                         tuple(h / bnorm for h in history))
-    if not np.all(np.isfinite(x)) or residual > max(1e3 * rtol, 1e-6):
-        hint = "; try the direct solver" if method == "amg" else ""
-        raise errors.SolverError(
-            f"linear solve ({method}, {n} unknowns) did not converge: relative residual {residual:.3e}{hint}"
-        )
-    log.info("solved %d unknowns with %s in %.2f s (%d iterations, residual %.1e)",
-             n, method, record.seconds, iterations, residual)
-    return x, record
+
+class Prepared:
+    """A factorisation or AMG hierarchy of one SPD matrix, reused for every right-hand side."""
+
+    def __init__(self, A: sp.spmatrix, method: str = "auto", near_null: np.ndarray | None = None,
+                 rtol: float = 1e-10, maxiter: int = 500):
+        self.A = A.tocsr()
+        self.n = int(A.shape[0])
+        self.method = choose(self.n, method)
+        self.rtol, self.maxiter, self.solves = rtol, maxiter, 0
+        start = time.perf_counter()
+        if self.method == "direct":
+            self._lu = spla.splu(self.A.tocsc())
+        else:
+            import pyamg
+
+            with _one_thread():
+                self._ml = pyamg.smoothed_aggregation_solver(self.A, B=near_null)
+        self.setup_seconds = time.perf_counter() - start
+
+    def solve(self, b: np.ndarray) -> tuple[np.ndarray, SolveRecord]:
+        start = time.perf_counter()
+        bnorm = float(np.linalg.norm(b)) or 1.0
+        history: list[float] = []
+        if self.method == "direct":
+            x = self._lu.solve(b)
+            iterations = 1
+            for _ in range(REFINEMENT_STEPS):  # iterative refinement: SuperLU pivots for stability, not SPD
+                r = b - self.A @ x
+                history.append(float(np.linalg.norm(r)))
+                if history[-1] <= self.rtol * bnorm:
+                    break
+                x = x + self._lu.solve(r)
+                iterations += 1
+        else:
+            with _one_thread():
+                try:
+                    x = self._ml.solve(b, tol=self.rtol, accel="cg", maxiter=self.maxiter, residuals=history,
+                                       callback=self._watch(history, bnorm))
+                except _Stalled:
+                    x = self._iterate
+            iterations = max(len(history) - 1, 0)
+        residual = float(np.linalg.norm(self.A @ x - b)) / bnorm
+        seconds = time.perf_counter() - start + (0.0 if self.solves else self.setup_seconds)
+        self.last_residual, self.spent = residual, seconds
+        record = SolveRecord(self.method, self.n, iterations, residual, seconds,
+                             tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0)
+        self.solves += 1
+        if not np.all(np.isfinite(x)) or residual > max(1e3 * self.rtol, 1e-6):
+            trail = ", ".join(f"{h:.1e}" for h in record.history[-8:])
+            hint = ("; try the direct solver (solver = \"direct\")" if self.method == "amg" else
+                    "; the matrix may be singular: check the supports and the materials")
+            raise errors.SolverError(f"linear solve ({self.method}, {self.n} unknowns) did not converge: relative "
+                                     f"residual {residual:.3e} after {iterations} iterations (last residuals "
+                                     f"{trail}){hint}")
+        log.info("solved %d unknowns with %s in %.2f s (%d iterations, residual %.1e)",
+                 self.n, self.method, record.seconds, iterations, residual)
+        return x, record
+
+    def _watch(self, history: list[float], bnorm: float):
+        """Log every tenth iteration; stop a stalled iteration (less than 10x in the last 100)."""
+        def report(xk):
+            self._iterate = xk
+            k = len(history) - 1
+            if k % 10 == 0:
+                log.info("AMG-CG iteration %d: relative residual %.2e", k, history[-1] / bnorm)
+            if k >= 100 and history[-1] > 0.1 * history[-101]:
+                raise _Stalled()
+        return report
+
+
+def solve_spd(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float = 1e-10,
+              near_null: np.ndarray | None = None, maxiter: int = 500) -> tuple[np.ndarray, SolveRecord]:
+    """Solve ``A x = b`` once for a symmetric positive definite ``A``; returns x and its record.
+
+    With ``method="auto"`` an AMG solve that does not converge is retried with the direct solver up
+    to FALLBACK_LIMIT unknowns, and the record says so."""
+    prepared = Prepared(A, method, near_null, rtol, maxiter)
+    try:
+        return prepared.solve(b)
+    except errors.SolverError as exc:
+        if method != "auto" or prepared.method != "amg" or prepared.n > FALLBACK_LIMIT:
+            raise
+        log.warning("%s; retrying with the direct solver", exc.problems[0])
+        x, record = Prepared(A, "direct", rtol=rtol).solve(b)
+        return x, SolveRecord(f"direct (after AMG stalled at {prepared.last_residual:.1e})", record.unknowns,
+                              record.iterations, record.residual, record.seconds + prepared.spent,
+                              record.history, record.setup_seconds)
+
+
+class _Stalled(Exception):
+    pass
+
+
+class _one_thread:
+    """Numerical libraries on one thread around the CG/AMG loop: their level-1 kernels lose to
+    oversubscription on small shared machines (docs/performance.md)."""
+
+    def __enter__(self):
+        try:
+            from threadpoolctl import threadpool_limits
+        except ImportError:  # pragma: no cover - threadpoolctl is a dependency
+            self._limit = None
+            return self
+        self._limit = threadpool_limits(1)
+        return self
+
+    def __exit__(self, *exc):
+        if self._limit is not None:
+            self._limit.restore_original_limits()
+
+
+# ------------------------------------------------------------------------------------------ memory
+
+#: Peak bytes per stored matrix entry and per unknown, measured by benchmarks/scaling.py over the
+#: whole stage (matrix, its constrained copy, assembly chunks, AMG hierarchy or factor, fields).
+BYTES_PER_ENTRY = {"amg": 60.0, "direct": 400.0}
+BYTES_PER_UNKNOWN = 1200.0
+#: Stored entries per row of the assembled matrix on unstructured tetrahedral meshes (measured).
+ENTRIES_PER_ROW = {(1, 1): 15.0, (2, 1): 28.0, (1, 3): 45.0, (2, 3): 84.0}
+
+
+def estimate_memory(unknowns: int, order: int, components: int, method: str) -> int:
+    """Peak bytes of a stage with ``unknowns`` unknowns of P``order`` with ``components`` per point."""
+    entries = ENTRIES_PER_ROW[(order, components)] * unknowns
+    return int(BYTES_PER_ENTRY[method] * entries + BYTES_PER_UNKNOWN * unknowns)
+
+
+def available_memory() -> int:
+    """Bytes the system can still give (MemAvailable), or the physical memory if that is unknown."""
+    try:
+        with open("/proc/meminfo") as f:
+            for line in f:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+
+
+def check_memory(unknowns: int, order: int, components: int, method: str, limit: float | None,
+                 where: str) -> int:
+    """Refuse, before assembly, a model whose estimate exceeds ``limit`` bytes (default: what is
+    available); returns the estimate."""
+    chosen = choose(unknowns, method)
+    need = estimate_memory(unknowns, order, components, chosen)
+    room = int(limit) if limit is not None else available_memory()
+    if need > room:
+        gib = 2.0**30
+        other = "; the AMG solver (solver = \"amg\") needs less" if chosen == "direct" else ""
+        raise errors.InputError(
+            f"{where}: the model has {unknowns:,} unknowns (P{order}, {components} per point) and needs about "
+            f"{need / gib:.1f} GiB with the {chosen} solver, but {room / gib:.1f} GiB "
+            f"{'is the memory_limit' if limit is not None else 'is available'}; use a coarser mesh or order = 1"
+            f"{other}")
+    return need

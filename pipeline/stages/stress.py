@@ -15,14 +15,11 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
-from skfem import Basis, BilinearForm, ElementVector, FacetBasis, LinearForm, asm
-from skfem.helpers import ddot, dot, sym_grad
 
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
-from . import constitutive, fem, recovery, supports
-from .solvers import solve_spd
+from . import constitutive, fem, kernels, recovery, solvers, supports
 from .supports import Support
 
 STAGE_VERSION = 1
@@ -37,6 +34,7 @@ class StressSpec:
     (Fx, Fy, Fz) [N], spread evenly over its area.  gravity: acceleration (gx, gy, gz) [m/s^2] acting
     on each part's density.  body_force: part -> function of x (3, ...) [m] giving (3, ...) [N/m^3].
     probes: name -> (x, y, z) [m].  order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
+    memory_limit: bytes the stage may use (default: what is available); checked before assembly.
     """
 
     materials: Mapping[str, Material]
@@ -48,44 +46,7 @@ class StressSpec:
     probes: Mapping[str, tuple[float, float, float]] = field(default_factory=dict)
     order: int = 2
     solver: str = "auto"
-
-
-def elasticity_forms(c: np.ndarray, alpha: np.ndarray):
-    """The stiffness and thermal-load forms of one part, sharing the constitutive closure C(eps)."""
-
-    def C(strain):
-        s = np.einsum("ij,j...->i...", c, strain)
-        return np.array([[s[0], s[5], s[4]], [s[5], s[1], s[3]], [s[4], s[3], s[2]]])
-
-    @BilinearForm
-    def stiffness(u, v, w):
-        return ddot(C(constitutive.voigt(sym_grad(u))), sym_grad(v))
-
-    @LinearForm
-    def thermal_load(v, w):
-        return ddot(C(np.einsum("i,...->i...", alpha, w.temperature - w.reference)), sym_grad(v))
-
-    return stiffness, thermal_load, C
-
-
-@LinearForm
-def body_load(v, w):
-    return dot(w.b, v)
-
-
-@LinearForm
-def traction(v, w):
-    return dot(w.t, v)
-
-
-@LinearForm
-def pressure_load(v, w):
-    return -w.p * dot(w.n, v)
-
-
-@BilinearForm
-def spring(u, v, w):
-    return w.k * dot(u, v)
+    memory_limit: float | None = None
 
 
 def check(domain, spec: StressSpec, where: str = "stress") -> None:
@@ -121,69 +82,65 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
             problems.append(f"{where}: material '{m.name}' of part '{part}' needs a positive Young's modulus")
         if m.kind == "isotropic" and not -1 < m.poisson_ratio[0] < 0.5:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
-    try:
-        fem.probe_points(domain, spec.probes, where)
-    except errors.InputError as exc:
-        problems += exc.problems
+    fem.check_probes(domain, spec.probes, where, problems)
     if problems:
         raise errors.InputError(problems)
 
 
 def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stress") -> StressField:
-    """Displacements, stresses, reactions and safety factors; see the module docstring."""
+    """Displacements, stresses, reactions and safety factors; see the module docstring.
+
+    Quadrature (exact where the integrand is polynomial): stiffness degree 2(p-1); thermal load
+    (p-1) + the temperature's order; loads and springs 2p; recovery 2p."""
     check(domain, spec, where)
     start = time.perf_counter()
-    mesh = domain.mesh
-    element = ElementVector(fem.element(spec.order))
-    full = Basis(mesh, element, intorder=2 * spec.order)
-    rows, pdofs, xyz = supports.gather(domain, full, spec.supports, where)
-    spring_points = [supports.surface_points(full, domain.surfaces[n], pdofs)
-                     for n, s in spec.supports.items() if s.kind == "spring"]
+    space = fem.space(domain, spec.order)
+    n = 3 * space.N
+    solvers.check_memory(n, spec.order, 3, spec.solver, spec.memory_limit, where)
+    geom = fem.geometry(domain)
+    rows, pdofs, xyz = supports.gather(domain, space, spec.supports, where)
+    spring_points = [space.facet_dofs(domain.surfaces[name]) for name, s in spec.supports.items() if s.kind == "spring"]
     supports.free_motions(domain, rows, xyz, np.concatenate(spring_points) if spring_points else
                           np.zeros(0, dtype=np.int64), where)
-    constraints = supports.build(rows, pdofs, full.N, where)
+    constraints = supports.build(rows, pdofs, n, where)
 
-    K = None
-    f_thermal = np.zeros(full.N)
-    f_mech = np.zeros(full.N)
+    stiffness = kernels.Assembler(n)
+    f_thermal, f_mech = np.zeros(n), np.zeros(n)
+    loads_ref = kernels.reference(spec.order, kernels.degree_mass(spec.order))
+    thermal_ref = kernels.reference(spec.order, spec.order - 1 + (load.order if load is not None else 0))
     per_part = {}
     for part in sorted(domain.parts):
         ids = domain.parts[part]
         material = spec.materials[part]
         c, alpha = constitutive.stiffness_matrix(material), constitutive.expansion_vector(material)
-        basis = Basis(mesh, element, elements=ids, intorder=2 * spec.order)
-        stiffness, thermal_load, C = elasticity_forms(c, alpha)
-        K = asm(stiffness, basis) if K is None else K + asm(stiffness, basis)
-        temperature = reference = None
+        kernels.stiffness(space, geom, ids, c, kernels.degree_stiffness(spec.order), stiffness)
         if load is not None:
-            temperature = basis.with_element(fem.element(load.order)).interpolate(load.temperature)
-            reference = fem.per_element(load.reference[ids], basis)
-            f_thermal += asm(thermal_load, basis, temperature=temperature, reference=reference)
-        b = np.zeros((3,) + basis.dx.shape)
+            dt = recovery.temperature_rise(domain, load, ids, thermal_ref)
+            f_thermal += kernels.strain_load(space, geom, ids, np.einsum("st,t,nq->nsq", c, alpha, dt), thermal_ref)
+        b = np.zeros((len(ids), 3, len(loads_ref.weights)))
         if spec.gravity is not None:
-            b += material.density * np.asarray(spec.gravity, float)[:, None, None]
+            b += material.density * np.asarray(spec.gravity, float)[None, :, None]
         if part in spec.body_force:
-            b += spec.body_force[part](basis.mapping.F(basis.X))
+            b += np.moveaxis(spec.body_force[part](geom.points(loads_ref, ids)), 0, 1)
         if b.any():
-            f_mech += asm(body_load, basis, b=b)
-        per_part[part] = recovery.PartModel(basis, c, alpha, temperature, reference, material)
+            f_mech += kernels.vector_load(space, geom, ids, b, loads_ref)
+        per_part[part] = recovery.PartModel(ids, c, alpha, material)
 
+    degree = kernels.degree_mass(spec.order)
     for name, p in spec.pressure.items():
-        f_mech += asm(pressure_load, FacetBasis(mesh, element, facets=domain.surfaces[name], intorder=2 * spec.order),
-                      p=p)
+        facets = kernels.Facets(space, geom, domain.surfaces[name], degree)
+        f_mech += facets.vector_load(np.repeat(-p * facets.normal[:, :, None], facets.nq, axis=2))
     for name, force in spec.force.items():
-        facets = domain.surfaces[name]
-        t = np.asarray(force, float) / domain.facet_areas(facets).sum()
-        fb = FacetBasis(mesh, element, facets=facets, intorder=2 * spec.order)
-        f_mech += asm(traction, fb, t=np.broadcast_to(t[:, None, None], (3,) + fb.dx.shape).copy())
+        facets = kernels.Facets(space, geom, domain.surfaces[name], degree)
+        f_mech += facets.vector_load(np.asarray(force, float) / facets.area.sum())
+    K = stiffness.matrix()
     springs = {}
     for name, s in spec.supports.items():
         if s.kind == "spring":
-            fb = FacetBasis(mesh, element, facets=domain.surfaces[name], intorder=2 * spec.order)
-            springs[name] = asm(spring, fb, k=s.stiffness)
+            springs[name] = kernels.Facets(space, geom, domain.surfaces[name], degree).vector_mass(s.stiffness)
             K = K + springs[name]
 
-    u, record = _solve_constrained(K.tocsr(), f_thermal + f_mech, constraints, full, spec.solver)
+    u, record = _solve_constrained(K.tocsr(), f_thermal + f_mech, constraints, space, spec.solver)
     residual = K @ u - f_thermal - f_mech  # nodal reactions at constrained points [N]
     reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
                  for name, pts in constraints.owner.items()}
@@ -193,8 +150,8 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     applied = [float(f_mech[pdofs[:, i]].sum()) for i in range(3)]
     equilibrium = _equilibrium(reactions, applied, float(np.abs(f_thermal + f_mech).max(initial=0.0)))
 
-    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order)
-    probes = _probes(domain, full, u, elements["von_mises"], spec.probes, where)
+    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order, load)
+    probes = _probes(domain, spec.order, u, elements["von_mises"], spec.probes, where)
     return StressField(
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
@@ -204,7 +161,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     )
 
 
-def _solve_constrained(K, f, constraints, basis, method):
+def _solve_constrained(K, f, constraints, space, method):
     """Solve in the local frames of the constrained points, with rigid-body modes for AMG."""
     T = constraints.transform
     Kl = (T.T @ K @ T).tocsr()
@@ -213,27 +170,22 @@ def _solve_constrained(K, f, constraints, basis, method):
     ul[constraints.fixed] = constraints.values
     free = np.setdiff1d(np.arange(len(f)), constraints.fixed)
     rhs = fl[free] - Kl[free][:, constraints.fixed] @ ul[constraints.fixed]
-    x = basis.doflocs
-    centre = x.mean(axis=1, keepdims=True)
-    modes = np.zeros((len(f), 6))
-    for k in range(3):
-        modes[basis.nodal_dofs[k], k] = 1.0
-        if basis.edge_dofs.size:
-            modes[basis.edge_dofs[k], k] = 1.0
-    rel = x - centre
-    for k, (i, j) in enumerate(((1, 2), (2, 0), (0, 1))):  # rotation about axis k turns axis i towards j
-        modes[:, 3 + k] = _rotation_mode(basis, rel, i, j, len(f))
-    ul[free], record = solve_spd(Kl[free][:, free], rhs, method=method, near_null=(T.T @ modes)[free])
+    modes = rigid_body_modes(space.doflocs)
+    ul[free], record = solvers.solve_spd(Kl[free][:, free], rhs, method=method, near_null=(T.T @ modes)[free])
     return T @ ul, record
 
 
-def _rotation_mode(basis, rel, i, j, n):
-    """Displacement of every dof under a unit rotation turning axis i towards axis j: u_i = -x_j, u_j = x_i."""
-    mode = np.zeros(n)
-    for d in [basis.nodal_dofs] + ([basis.edge_dofs] if basis.edge_dofs.size else []):
-        mode[d[i]] = -rel[j, d[j]]
-        mode[d[j]] = rel[i, d[i]]
-    return mode
+def rigid_body_modes(x: np.ndarray) -> np.ndarray:
+    """(3 n, 6) translations and rotations about the centroid of the points x (3, n) [m]."""
+    n = x.shape[1]
+    rel = x - x.mean(axis=1, keepdims=True)
+    modes = np.zeros((n, 3, 6))
+    for k in range(3):
+        modes[:, k, k] = 1.0
+    for k, (i, j) in enumerate(((1, 2), (2, 0), (0, 1))):  # rotation about axis k turns axis i towards j
+        modes[:, i, 3 + k] = -rel[j]
+        modes[:, j, 3 + k] = rel[i]
+    return modes.reshape(3 * n, 6)
 
 
 def _equilibrium(reactions: dict, applied: list[float], nodal_scale: float) -> dict:
@@ -244,11 +196,11 @@ def _equilibrium(reactions: dict, applied: list[float], nodal_scale: float) -> d
             "relative": float(np.linalg.norm(total) / scale) if scale > 0 else 0.0}
 
 
-def _probes(domain, basis, u, vm, probes, where) -> dict[str, dict]:
+def _probes(domain, order, u, vm, probes, where) -> dict[str, dict]:
     if not probes:
         return {}
-    names, points = fem.probe_points(domain, probes, where)
-    disp = (basis.probes(points) @ u).reshape(3, -1)
-    cells = domain.mesh.element_finder()(*points)
+    names, points, cells = fem.probe_points(domain, probes, where)
+    dofs, phi = fem.probe_weights(domain, order, points, cells)
+    disp = np.einsum("ip,ipc->cp", phi, u.reshape(-1, 3)[dofs])
     return {n: {"displacement_m": disp[:, i].tolist(), "von_mises_Pa": float(vm[cells[i]])}
             for i, n in enumerate(names)}

@@ -49,20 +49,10 @@ class Constraints:
     owner: dict[str, np.ndarray]
 
 
-def point_dofs(basis) -> np.ndarray:
-    """(n_points, 3) global dof ids of each displacement point (vertices, then edge midpoints for P2)."""
-    rows = [basis.nodal_dofs.T]
-    if basis.edge_dofs.size:
-        rows.append(basis.edge_dofs.T)
-    return np.vstack(rows)
-
-
-def surface_points(basis, facets: np.ndarray, pdofs: np.ndarray) -> np.ndarray:
-    """Point ids of the displacement points on the given facets."""
-    xdofs = basis.get_dofs(facets).all("u^1")
-    lookup = np.full(basis.N, -1)
-    lookup[pdofs[:, 0]] = np.arange(len(pdofs))
-    return np.unique(lookup[xdofs])
+def point_dofs(n_points: int) -> np.ndarray:
+    """(n_points, 3) global dof ids of each displacement point: component c of point s is 3 s + c
+    (points are the scalar space's dofs: vertices, then edge midpoints for P2)."""
+    return np.arange(3 * n_points).reshape(n_points, 3)
 
 
 def plane_normal(domain, facets: np.ndarray, name: str, where: str) -> np.ndarray:
@@ -79,10 +69,11 @@ def plane_normal(domain, facets: np.ndarray, name: str, where: str) -> np.ndarra
     return ref
 
 
-def gather(domain, basis, supports: Mapping[str, Support], where: str):
-    """Constraint rows (point, direction, value, support name) for every support but springs."""
-    pdofs = point_dofs(basis)
-    xyz = basis.doflocs[:, pdofs[:, 0]].T
+def gather(domain, space, supports: Mapping[str, Support], where: str):
+    """Constraint rows (point, direction, value, support name) for every support but springs, on the
+    points of the scalar ``space``; also the points' dofs (n, 3) and coordinates (n, 3) [m]."""
+    pdofs = point_dofs(space.N)
+    xyz = space.doflocs.T
     rows: list[tuple[np.ndarray, np.ndarray, np.ndarray, str]] = []  # (points, directions (n,3), values)
     for name, s in supports.items():
         if s.kind == "minimal":
@@ -92,7 +83,7 @@ def gather(domain, basis, supports: Mapping[str, Support], where: str):
         if s.kind == "spring":
             continue
         facets = domain.surfaces[name]
-        points = surface_points(basis, facets, pdofs)
+        points = space.facet_dofs(facets)
         if s.kind == "fixed":
             for axis in range(3):
                 rows.append((points, np.tile(np.eye(3)[axis], (len(points), 1)), np.zeros(len(points)), name))
@@ -138,7 +129,7 @@ def build(rows, pdofs, n_dofs: int, where: str) -> Constraints:
         claimed.update(new)
         owner.setdefault(name, []).extend(new)
     t_rows, t_cols, t_vals, fixed, fixed_values = [], [], [], [], []
-    conflicts = set()
+    conflicts: dict[tuple[str, ...], int] = {}
     for p, items in by_point.items():
         d = np.array([i[0] for i in items])
         g = np.array([i[1] for i in items])
@@ -146,7 +137,8 @@ def build(rows, pdofs, n_dofs: int, where: str) -> Constraints:
         rank = int((s > 1e-9 * s[0]).sum())
         sol = vt[:rank].T @ ((u[:, :rank].T @ g) / s[:rank])  # least-squares displacement of the point
         if np.abs(d @ sol - g).max() > 1e-12 + 1e-9 * np.abs(g).max(initial=0.0):
-            conflicts.add(tuple(sorted({i[2] for i in items})))
+            names = tuple(sorted({i[2] for i in items}))
+            conflicts[names] = conflicts.get(names, 0) + 1
         frame = vt  # orthonormal; its first ``rank`` rows span the constraint directions
         dofs = pdofs[p]
         for i in range(3):  # u_global[dofs] = frame.T @ u_local[dofs]
@@ -157,8 +149,9 @@ def build(rows, pdofs, n_dofs: int, where: str) -> Constraints:
         fixed.extend(dofs[:rank].tolist())
         fixed_values.extend((frame[:rank] @ sol).tolist())
     if conflicts:
-        raise errors.InputError([f"{where}: supports {' and '.join(c)} conflict: they prescribe different "
-                                 "displacements at shared points" for c in sorted(conflicts)])
+        raise errors.InputError([f"{where}.supports: supports {' and '.join(c)} conflict: they prescribe different "
+                                 f"displacements at {n} shared points (where the surfaces meet); give them the same "
+                                 "values there or support only one of these surfaces" for c, n in sorted(conflicts.items())])
     free = np.setdiff1d(np.arange(n_dofs), np.array(t_rows, dtype=np.int64))
     t = sp.coo_matrix((np.concatenate([t_vals, np.ones(len(free))]),
                        (np.concatenate([t_rows, free]), np.concatenate([t_cols, free]))), shape=(n_dofs, n_dofs))
@@ -202,9 +195,33 @@ def free_motions(domain, rows, xyz, spring_points: np.ndarray, where: str) -> No
             motions = [MOTIONS[k] for k in range(6) if np.linalg.norm(null[:, k]) > 0.3]
             parts = domain.body_parts(c)
             problems.append(
-                f"{where}: the body made of parts {', '.join(parts)} is free to move ({6 - rank} rigid-body "
+                f"{where}.supports: the body made of parts {', '.join(parts)} is free to move ({6 - rank} rigid-body "
                 f"motions: {', '.join(motions) or 'a combined motion'}); add supports, or use the minimal "
                 "support (kind = \"minimal\") for a free assembly"
             )
     if problems:
         raise errors.PhysicsError(problems)
+
+
+def check(domain, supports: Mapping[str, Support], where: str) -> None:
+    """Before any solve: supports that conflict or leave a body free to move are an ``InputError``.
+
+    Checked on the vertices (the P1 points): a P2 model's edge midpoints lie on the same surfaces and
+    are affine combinations of the vertices, so they add no rank against rigid motion and no shared
+    point that the vertices do not share."""
+    from . import fem
+
+    space = fem.space(domain, 1)
+    rows, pdofs, xyz = gather(domain, space, supports, where)
+    springs = [space.facet_dofs(domain.surfaces[n]) for n, s in supports.items() if s.kind == "spring"]
+    problems = []
+    try:
+        free_motions(domain, rows, xyz, np.concatenate(springs) if springs else np.zeros(0, dtype=np.int64), where)
+    except errors.PhysicsError as exc:
+        problems += exc.problems
+    try:
+        build(rows, pdofs, 3 * space.N, where)
+    except errors.InputError as exc:
+        problems += exc.problems
+    if problems:
+        raise errors.InputError(problems)
