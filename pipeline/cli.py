@@ -45,7 +45,33 @@ def _parser() -> argparse.ArgumentParser:
     ins = sub.add_parser("mesh", help="read a mesh and list its parts, surfaces, interfaces and bounding box")
     ins.add_argument("file")
     ins.add_argument("--unit", required=True, help="length unit of the mesh: m, cm, mm, um or in")
+    _study_parsers(sub)
+    _verify_parser(sub)
     return p
+
+
+def _study_parsers(sub) -> None:
+    """The ``sweep`` and ``converge`` subcommands (pipeline/studies, docs/studies.md)."""
+    sw = sub.add_parser("sweep", help="run a workflow for every combination of swept values (grid or paired lists)")
+    cv = sub.add_parser("converge", help="run a workflow on refined meshes; observed order, Richardson estimate, GCI")
+    for cmd in (sw, cv):
+        cmd.add_argument("workflow")
+        cmd.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                         help="override a value for every run, e.g. stages.heat.power.chip=3.0")
+        cmd.add_argument("--out", help="study folder (default: the workflow's output.folder + _sweep / _convergence)")
+        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or .thermochain-store "
+                                         "beside the workflow)")
+    sw.add_argument("--sweep", metavar="FILE", help="sweep definition file (default: the workflow's [sweep] table)")
+    sw.add_argument("--scheduler", metavar="ADDRESS", help="run on this Dask scheduler, e.g. tcp://host:8786 "
+                                                            "(default: a local cluster)")
+    sw.add_argument("--workers", type=int, help="worker processes of the local cluster (default: the cores)")
+    sw.add_argument("--threads", type=int, default=1, help="numerical-library threads per local worker (default 1)")
+    sw.add_argument("--serial", action="store_true", help="run the variants one after another in this process")
+    cv.add_argument("--levels", type=int, default=3, help="number of meshes, refined uniformly (default 3)")
+    cv.add_argument("--meshes", nargs="+", metavar="FILE", help="a series of mesh files instead (coarse to fine "
+                                                                 "or in any order; same unit as the workflow's mesh)")
+    cv.add_argument("--quantity", action="append", default=[], metavar="NAME",
+                    help="a figure to study, e.g. heat.board.max_degC (default: a standard set)")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -63,6 +89,11 @@ def main(argv: list[str] | None = None) -> int:
         for line in exc.problems:
             print(f"  {line}", file=sys.stderr)
         return exc.exit_status
+    except OSError as exc:  # a file outside the store (results folder, figures) cannot be read or written
+        if args.debug:
+            traceback.print_exc()
+        print(f"thermochain: run failed:\n  {exc.filename or 'file system'}: {exc.strerror or exc}", file=sys.stderr)
+        return 1
     except KeyboardInterrupt:
         print("thermochain: interrupted", file=sys.stderr)
         return 130
@@ -218,3 +249,77 @@ def _print_run(record: dict) -> None:
 
 COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh, "schema": _schema,
             "store": _store, "report": _report}
+COMMANDS |= {"sweep": lambda args: _study("sweep", args), "converge": lambda args: _study("converge", args)}
+
+
+def _verify_parser(sub) -> None:
+    """The ``verify`` subcommand (pipeline/verification, docs/verification.md)."""
+    vf = sub.add_parser("verify", help="run the verification cases (benchmarks, closed forms, convergence orders) "
+                                       "and write their table; exit 0 only when every case passes")
+    level = vf.add_mutually_exclusive_group()
+    level.add_argument("--quick", dest="level", action="store_const", const="quick",
+                       help="coarse meshes: seconds (what the tests run)")
+    level.add_argument("--fine", dest="level", action="store_const", const="fine",
+                       help="the converged figures of docs/verification.md (a minute or more)")
+    vf.set_defaults(level="default")
+    vf.add_argument("--only", action="append", default=[], metavar="CASE", help="run this case only (repeatable)")
+    vf.add_argument("--list", action="store_true", help="list the cases and the levels they run at")
+    vf.add_argument("--out", default="results/verification", help="work folder: one subfolder per case with its "
+                                                                  "workflow, meshes and results "
+                                                                  "(default: results/verification)")
+    vf.add_argument("--table", help="Markdown table to write (default: OUT/verification.md)")
+
+
+def _verify(args) -> int:
+    import time
+
+    from . import verification
+
+    if args.list:
+        for case in verification.select(args.only):
+            print(f"{case.name:<28} {', '.join(case.levels):<20} {case.title} ({case.path})")
+        return 0
+    start = time.perf_counter()
+
+    def progress(line: str) -> None:
+        if not args.quiet:
+            print(f"[{time.perf_counter() - start:7.2f} s] {line}", file=sys.stderr, flush=True)
+
+    command = " ".join(["thermochain verify"] + ([f"--{args.level}"] if args.level != "default" else [])
+                       + [f"--only {name}" for name in args.only] + ([f"--table {args.table}"] if args.table else []))
+    report = verification.run(args.level, args.only, args.out, progress=progress, command=command)
+    table = Path(args.table) if args.table else Path(args.out) / "verification.md"
+    verification.write(report, table, Path(args.out))
+    if not args.quiet:
+        verification.show(report)
+        print(f"table: {table}")
+    return 0 if report.passed else 1
+
+
+COMMANDS["verify"] = _verify
+
+
+def _study(kind: str, args) -> int:
+    """Run a sweep or a convergence study and print its summary (pipeline/studies)."""
+    import time
+
+    from .studies import convergence, sweep
+
+    start = time.perf_counter()
+
+    def progress(line: str) -> None:
+        if not args.quiet:
+            print(f"[{time.perf_counter() - start:7.2f} s] {line}", file=sys.stderr, flush=True)
+
+    if kind == "sweep":
+        record = sweep.run(args.workflow, args.sweep, args.set, args.store, args.out, args.scheduler, args.workers,
+                           args.threads, args.serial, progress=progress)
+        text = sweep.describe(record)
+    else:
+        record = convergence.run(args.workflow, args.levels, args.meshes, args.quantity, args.set, args.store,
+                                 args.out, progress=progress)
+        text = convergence.describe(record)
+    if not args.quiet:
+        print(text)
+        print("Caution: " + record["caution"])
+    return 1 if record.get("counts", {}).get("variants", {}).get("failed") else 0  # failed variants: see the table

@@ -43,12 +43,17 @@ class StoreError(ThermochainError):
     """The stage store cannot be written or locked (a failed run; earlier entries stay intact)."""
 
 
+def closest_name(name: str, valid: Iterable[str]) -> str | None:
+    """The valid choice closest to ``name``, or None when nothing is close."""
+    lowered = {str(v).lower(): str(v) for v in valid}
+    match = difflib.get_close_matches(str(name).lower(), list(lowered), n=1, cutoff=0.5)
+    return lowered[match[0]] if match else None
+
+
 def closest(name: str, valid: Iterable[str]) -> str:
     """A hint naming the valid choice closest to ``name`` (empty when nothing is close)."""
-    valid = list(valid)
-    lowered = {v.lower(): v for v in valid}
-    match = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.5)
-    return f" (did you mean '{lowered[match[0]]}'?)" if match else ""
+    match = closest_name(name, valid)
+    return f" (did you mean '{match}'?)" if match else ""
 
 
 def unknown_name(kind: str, name: str, valid: Iterable[str], where: str) -> str:

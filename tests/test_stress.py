@@ -352,3 +352,14 @@ def test_springs_hold_a_body_and_report_their_force():
     weight = 2700.0 * 0.1 * 0.02 * 0.02 * 9.81
     assert f.reactions["zmin"][2] == pytest.approx(weight, rel=1e-9)
     assert f.equilibrium["relative"] < 1e-9
+
+
+def test_a_material_without_strength_gets_stresses_but_no_safety_factor():
+    """A valid material may give no strength: the stage still solves, and no safety factor is invented."""
+    d = bar()
+    weak = from_record("nostrength", {"conductivity": 100.0, "youngs_modulus": E, "poisson_ratio": NU,
+                                      "expansion": ALPHA, "density": 2700.0}, "test")
+    f = stress.solve(d, uniform(d), stress.StressSpec({"body": weak}, {"xmin": Support("fixed")}, order=1))
+    assert f.parts["body"]["safety_factor"] is None
+    assert np.isnan(f.safety).all()
+    assert f.parts["body"]["von_mises_max_Pa"] > 0

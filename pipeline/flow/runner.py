@@ -13,13 +13,15 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
+
 from .. import __version__, errors
 from ..fields import StressField, TemperatureField, ThermalLoad
 from ..model import materials as materials_mod
 from ..model import finishes
 from ..model import mesh as mesh_mod
 from ..outputs import publish, summary
-from ..stages import heat, mapping, stress
+from ..stages import heat, mapping, stress, supports
 from ..stages.supports import Support
 from . import store as store_mod
 from . import workflow as wf
@@ -74,25 +76,31 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
     problems: list[str] = []
     domains: dict[tuple[str, str], mesh_mod.Domain] = {}
 
-    def domain_of(section) -> mesh_mod.Domain:
+    def domain_of(section, key: str = "mesh") -> mesh_mod.Domain:
         k = (section.file, section.unit)
         if k not in domains:
+            if not Path(section.file).is_file():
+                raise errors.MeshError(f"{path}: {key}.file: mesh file not found: {section.file} (a path relative "
+                                       "to the workflow file)")
             domains[k] = mesh_mod.load(section.file, unit=section.unit)
         return domains[k]
 
     main = domain_of(workflow.mesh)
     library = materials_mod.library()
-    if workflow.materials:
+    broken: set[str] = set()  # inline materials with problems: reported once, not again as unknown names
+    for name, record in workflow.materials.items():
         try:
-            library = library.extended(workflow.materials, f"{path}: [materials]")
+            library = library.extended({name: record}, f"{path}: [materials]")
         except errors.InputError as exc:
             problems += exc.problems
+            broken.add(name)
     for part in main.parts:
         if part not in workflow.parts:
             problems.append(f"{path}: mesh part '{part}' has no entry in [parts]; give it a material")
     for part in workflow.parts:
         if part not in main.parts:
             problems.append(errors.unknown_name("part", part, main.parts, f"{path}: parts"))
+    probes = _probes(workflow, main, path, problems)
 
     stages: list[StagePlan] = []
     by_name: dict[str, StagePlan] = {}
@@ -105,7 +113,8 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             failed.add(name)  # its source's problems are reported already
             continue
         try:
-            planned = _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name, versions)
+            planned = _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name, versions,
+                                  probes, broken)
         except errors.InputError as exc:
             problems += exc.problems
             failed.add(name)
@@ -120,12 +129,24 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
     return Plan(path, workflow, stages, store_mod.Store(store_root(path, store)), folder, main)
 
 
-def _materials(workflow, stage, domain, library, where) -> tuple[dict, dict[str, str], list[str]]:
+def _probes(workflow, domain, path: Path, problems: list[str]) -> dict[str, tuple]:
+    """The workflow's probes inside the mesh; each one outside is reported once, with the mesh's extent."""
+    probes = {p: tuple(xyz) for p, xyz in workflow.probes.items()}
+    inside = domain.contains(np.array(list(probes.values())).reshape(-1, 3))
+    lo, hi = domain.bounding_box
+    for (name, xyz), ok in zip(probes.items(), inside):
+        if not ok:
+            problems.append(f"{path}: probes.{name}: probe '{name}' at {list(xyz)} m is outside the mesh "
+                            f"{workflow.mesh.file}; its bounding box is {lo.tolist()} to {hi.tolist()} m")
+    return {p: xyz for (p, xyz), ok in zip(probes.items(), inside) if ok}
+
+
+def _materials(workflow, stage, domain, library, where, broken=()) -> tuple[dict, dict[str, str], list[str]]:
     problems, chosen, names = [], {}, {}
     for part in domain.parts:
         entry = workflow.parts.get(part)
         name = stage.materials.get(part, entry.material if entry else None)
-        if name is None:
+        if name is None or name in broken:
             continue  # reported once for the workflow
         if name not in library:
             key = f"{where}.materials.{part}" if part in stage.materials else f"{workflow_file(where)}: parts.{part}.material"
@@ -160,32 +181,42 @@ def _checked(check, domain, spec, where, problems, mats):
         raise errors.InputError(problems)
 
 
-def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name, versions) -> StagePlan:
-    probes = {p: tuple(xyz) for p, xyz in workflow.probes.items()}
+def _before_solving(check, *args) -> None:
+    """A stage's physics checks that need no solution, run at planning: their problems are bad input."""
+    try:
+        check(*args)
+    except errors.PhysicsError as exc:
+        raise errors.InputError(exc.problems) from None
+
+
+def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name, versions, probes,
+                broken) -> StagePlan:
     base = {"kind": stage.kind, "versions": versions}
+    kinds = {n: s.kind for n, s in workflow.stages.items()}
     if stage.kind == "heat":
-        mats, names, problems = _materials(workflow, stage, main, library, where)
+        mats, names, problems = _materials(workflow, stage, main, library, where, broken)
         spec = heat.HeatSpec(
             materials=mats, power=stage.power, generation=stage.generation,
             flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
             convection={s: heat.Convection(c.film_coefficient, c.ambient, c.exponent, c.reference_difference)
                         for s, c in stage.convection.items()},
             radiation=_radiation(stage, where, problems),
-            fixed_temperature=stage.fixed_temperature, probes=probes, order=stage.order, solver=stage.solver,
+            fixed_temperature=stage.fixed_temperature, probes=probes, order=stage.order, solver=stage.solver, memory_limit=stage.memory_limit,
             max_iterations=stage.max_iterations)
         problems += [errors.unknown_name("surface", a, main.surfaces, f"{where}.adiabatic")
                      for a in stage.adiabatic if a not in main.surfaces]
         _checked(heat.check, main, spec, where, problems, mats)
-        inputs = base | {"version": heat.STAGE_VERSION, "options": stage.model_dump(exclude={"materials"}),
+        _before_solving(heat._check_heat_can_leave, main, spec, where)
+        inputs = base | {"version": heat.STAGE_VERSION, "options": stage.model_dump(exclude={"materials", "memory_limit"}),
                          "materials": {p: m.reads(*READS["heat"]) for p, m in sorted(mats.items())},
                          "mesh": [main.source_hash, main.unit], "probes": probes}
         return StagePlan(name, "heat", main, spec, inputs, store_mod.key(inputs), None, names)
     if stage.kind == "map":
-        target = domain_of(stage.mesh) if stage.mesh else main
+        target = domain_of(stage.mesh, f"stages.{name}.mesh") if stage.mesh else main
         spec = mapping.MapSpec(stage.reference, stage.reference_by_part, stage.tolerance, stage.order)
         options = stage.model_dump(exclude={"source", "file", "mesh"})
         if stage.source is not None:
-            upstream = _upstream(stage.source, "heat", by_name, where)
+            upstream = _upstream(stage.source, "heat", by_name, where, kinds)
             read = {"upstream": upstream.key}
         else:
             file = Path(stage.file)
@@ -196,17 +227,18 @@ def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name,
                          "mesh": [target.source_hash, target.unit]} | read
         return StagePlan(name, "map", target, spec, inputs, store_mod.key(inputs), stage.source)
     # stress
-    upstream = _upstream(stage.source, "map", by_name, where) if stage.source else None
+    upstream = _upstream(stage.source, "map", by_name, where, kinds) if stage.source else None
     domain = upstream.domain if upstream else main
-    mats, names, problems = _materials(workflow, stage, domain, library, where)
+    mats, names, problems = _materials(workflow, stage, domain, library, where, broken)
     sups = {s: Support(v.kind, {a: getattr(v, a) for a in "xyz" if getattr(v, a) is not None} or None,
                        v.stiffness) for s, v in stage.supports.items()}
     spec = stress.StressSpec(mats, sups, pressure=stage.pressure,
                              force={s: tuple(f) for s, f in stage.force.items()},
                              gravity=tuple(stage.gravity) if stage.gravity else None, probes=probes,
-                             order=stage.order, solver=stage.solver)
+                             order=stage.order, solver=stage.solver, memory_limit=stage.memory_limit)
     _checked(stress.check, domain, spec, where, problems, mats)
-    inputs = base | {"version": stress.STAGE_VERSION, "options": stage.model_dump(exclude={"materials", "source"}),
+    _before_solving(supports.check, domain, spec.supports, where)
+    inputs = base | {"version": stress.STAGE_VERSION, "options": stage.model_dump(exclude={"materials", "source", "memory_limit"}),
                      "materials": {p: m.reads(*READS["stress"]) for p, m in sorted(mats.items())},
                      "mesh": [domain.source_hash, domain.unit], "probes": probes,
                      "upstream": upstream.key if upstream else None}
@@ -225,7 +257,10 @@ def _radiation(stage, where: str, problems: list[str]) -> dict:
     return out
 
 
-def _upstream(source: str, kind: str, by_name: dict, where: str) -> StagePlan:
+def _upstream(source: str, kind: str, by_name: dict, where: str, kinds: dict[str, str]) -> StagePlan:
+    if kinds.get(source, kind) != kind:
+        raise errors.InputError(f"{where}.source: stage '{source}' is a {kinds[source]} stage; "
+                                f"this stage reads a {kind} stage")
     if source not in by_name:
         raise errors.InputError(errors.unknown_name(f"{kind} stage", source, [n for n, p in by_name.items()
                                                                              if p.kind == kind], f"{where}.source"))
@@ -336,7 +371,10 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
         except errors.ThermochainError as exc:
             record["stages"][s.name] = entry | {"status": "failed", "reason": str(exc)}
             record["status"] = "failed"
-            summary.write_json(p.folder / "summary.json", record)
+            try:
+                summary.write_json(p.folder / "summary.json", record)
+            except OSError as write_error:  # e.g. the same full disk: the stage's own error is the one to report
+                log.warning("%s: summary.json not written (%s)", p.folder, write_error.strerror or write_error)
             raise
         results[s.name], domains[s.name] = result, s.domain
         solver = getattr(result, "solver", None)

@@ -125,7 +125,7 @@ class Store:
     def put(self, kind: str, k: str, arrays: dict[str, np.ndarray], meta: dict, manifest: dict) -> Path:
         """Write an entry atomically; a failure is a ``StoreError`` and leaves other entries intact."""
         place = self._place(kind, k)
-        tmp = None
+        tmp = old = None
         try:
             place.parent.mkdir(parents=True, exist_ok=True)
             tmp = Path(tempfile.mkdtemp(prefix=f".{k[:12]}.", dir=place.parent))
@@ -138,12 +138,21 @@ class Store:
                 digests[name] = hashlib.sha256(content).hexdigest()
             full = manifest | {"kind": kind, "key": k, "files": digests, "written": time.time()}
             _write_synced(tmp / "manifest.json", json.dumps(full, indent=1, sort_keys=True, default=_plain).encode())
-            if place.exists():  # a damaged entry being replaced
-                shutil.rmtree(place)
+            _fsync_dir(tmp)
+            if place.exists():  # a damaged entry being replaced: move it aside whole, never delete it in place,
+                old = Path(tempfile.mkdtemp(prefix=f".{k[:12]}.", dir=place.parent))  # so a kill cannot leave
+                os.rename(place, old / "entry")  # half an entry behind; the place is empty for a moment (a miss)
             os.rename(tmp, place)
-            _fsync_dir(place.parent)
             tmp = None
+            _fsync_dir(place.parent)
+            if old is not None:
+                shutil.rmtree(old, ignore_errors=True)
         except OSError as exc:
+            if old is not None and not place.exists():  # put the entry that was moved aside back
+                try:
+                    os.rename(old / "entry", place)
+                except OSError:
+                    pass
             raise errors.StoreError(f"store {self.root}: cannot write the {kind} entry ({exc.strerror or exc}); "
                                     "earlier entries are intact") from None
         finally:
@@ -157,6 +166,8 @@ class Store:
             return out
         for manifest in sorted(self.root.glob("*/*/manifest.json")):
             place = manifest.parent
+            if place.name.startswith("."):
+                continue  # a write that was interrupted, not an entry
             size = sum(f.stat().st_size for f in place.iterdir() if f.is_file())
             data = json.loads(manifest.read_text())
             out.append(Entry(place.parent.name, place.name, place, size, data.get("written", 0.0),

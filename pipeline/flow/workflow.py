@@ -8,13 +8,16 @@ them.  Every problem is reported at once, with the file and the key path.  See d
 from __future__ import annotations
 
 import copy
+import re
 import tomllib
+import typing
 from pathlib import Path
 from typing import Annotated, Literal, Union
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
 
 from .. import errors
+from ..model.finishes import FINISHES
 from ..model.units import to_si
 
 
@@ -35,6 +38,19 @@ Force = quantity("N")
 SpringStiffness = quantity("N/m**3", gt=0)
 Acceleration = quantity("m/s**2")
 LengthUnit = Literal["m", "cm", "mm", "um", "in"]
+KINDS = ("heat", "map", "stress")
+
+
+def _emissivity(value):
+    """A number in 0..1 or a finish name (the name is looked up by the runner); one message either way."""
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 <= value <= 1:
+        raise ValueError(f"emissivity must be a number in 0..1 or a finish name ({', '.join(FINISHES)})")
+    return float(value)
+
+
+Emissivity = Annotated[float | str, BeforeValidator(_emissivity)]
 
 
 class Strict(BaseModel):
@@ -63,7 +79,7 @@ class ConvectionSection(Strict):
 
 
 class RadiationSection(Strict):
-    emissivity: Annotated[float, Field(ge=0, le=1)] | str = Field(description="0..1 or a finish name")
+    emissivity: Emissivity = Field(description="0..1 or a finish name")
     surroundings: Temperature
 
 
@@ -76,6 +92,8 @@ class HeatStage(Strict):
     kind: Literal["heat"]
     order: Literal[1, 2] = 1
     solver: Literal["auto", "direct", "amg"] = "auto"
+    memory_limit: quantity("B", gt=0) | None = Field(default=None, description="bytes the stage may use, e.g. "
+                                                     "\"8 GiB\" (default: what the machine has available); not part of the store key")
     materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
     power: dict[str, Power] = Field(default_factory=dict, description="part -> W")
     generation: dict[str, Generation] = Field(default_factory=dict, description="part -> W/m^3")
@@ -122,6 +140,8 @@ class StressStage(Strict):
     source: str | None = Field(default=None, description="the map stage that gives the temperatures")
     order: Literal[1, 2] = 2
     solver: Literal["auto", "direct", "amg"] = "auto"
+    memory_limit: quantity("B", gt=0) | None = Field(default=None, description="bytes the stage may use, e.g. "
+                                                     "\"8 GiB\" (default: what the machine has available); not part of the store key")
     materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
     supports: dict[str, SupportSection] = Field(description="surface (or any name for 'minimal') -> support")
     pressure: dict[str, Pressure] = Field(default_factory=dict, description="surface -> Pa")
@@ -149,6 +169,10 @@ class Workflow(Strict):
     stages: dict[str, Stage]
     probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
     output: OutputSection = OutputSection()
+    # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
+    # is in no store key
+    sweep: dict | None = Field(default=None, description="a parameter study: grid and paired value lists "
+                               "by key path (docs/studies.md)")
 
 
 def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
@@ -163,6 +187,10 @@ def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise errors.InputError(f"{path}: workflow file not found") from None
+    except UnicodeDecodeError:
+        raise errors.InputError(f"{path}: not a text file (a workflow is UTF-8 TOML)") from None
+    except OSError as exc:
+        raise errors.InputError(f"{path}: cannot read the workflow file ({exc.strerror or exc})") from None
     except tomllib.TOMLDecodeError as exc:
         raise errors.InputError(f"{path}: TOML syntax error: {exc}") from None
     _absolute_paths(raw, path.parent)
@@ -171,6 +199,9 @@ def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
         return raw
     if not isinstance(parent, str):
         raise errors.InputError(f"{path}: extends must be a file name, got {parent!r}")
+    if not (path.parent / parent).is_file():
+        raise errors.InputError(f"{path}: extends: workflow file '{parent}' not found (looked for "
+                                f"{path.parent / parent}); give a path relative to this file")
     return merge(read_raw(path.parent / parent, seen + (path.resolve(),)), raw)
 
 
@@ -182,7 +213,8 @@ def _absolute_paths(raw: dict, base: Path) -> None:
 
     fix(raw.get("mesh"), "file")
     fix(raw.get("output"), "folder")
-    for stage in (raw.get("stages") or {}).values():
+    stages = raw.get("stages")
+    for stage in stages.values() if isinstance(stages, dict) else ():
         fix(stage, "file")
         if isinstance(stage, dict):
             fix(stage.get("mesh"), "file")
@@ -225,9 +257,33 @@ def load(path: str | Path, sets: list[str] | None = None) -> Workflow:
     path = Path(path)
     raw = apply_sets(read_raw(path), sets or [], str(path))
     try:
-        return Workflow.model_validate(raw)
+        workflow = Workflow.model_validate(raw)
     except ValidationError as exc:
-        raise errors.InputError([_message(path, e, raw) for e in exc.errors()]) from None
+        raise errors.InputError(_messages(path, exc.errors(), raw)) from None
+    problems = _cycles(path, workflow)
+    if problems:
+        raise errors.InputError(problems)
+    return workflow
+
+
+def _cycles(path: Path, workflow: Workflow) -> list[str]:
+    """Stages whose sources lead back to themselves (a chain runs heat -> map -> stress)."""
+    reads = {n: s.source for n, s in workflow.stages.items() if getattr(s, "source", None) in workflow.stages}
+    problems, reported = [], set()
+    for start in reads:
+        chain = [start]
+        while chain[-1] in reads:
+            following = reads[chain[-1]]
+            if following in chain:
+                cycle = chain[chain.index(following):] + [following]
+                if frozenset(cycle) not in reported:
+                    reported.add(frozenset(cycle))
+                    problems.append(f"{path}: stages.{cycle[0]}.source: the stages {' -> '.join(cycle)} form a cycle "
+                                    "(each reads the next); a chain runs heat -> map -> stress, so a map stage "
+                                    "reads a heat stage and a stress stage reads a map stage")
+                break
+            chain.append(following)
+    return problems
 
 
 def schema() -> dict:
@@ -235,43 +291,107 @@ def schema() -> dict:
     return Workflow.model_json_schema()
 
 
-def _message(path: Path, error: dict, raw: dict) -> str:
-    loc = _clean(error["loc"])
+def _messages(path: Path, found: list[dict], raw: dict) -> list[str]:
+    """One message per key path (a union reports each of its members; the first is the most specific)."""
+    cleaned = [(_clean(e["loc"], raw), e) for e in found]
+    missing = {loc for loc, e in cleaned if e["type"] == "missing"}
+    misspelt = {}  # missing key path -> the unknown key that is probably it, misspelt
+    for loc, e in cleaned:
+        if e["type"] == "extra_forbidden":
+            match = errors.closest_name(str(loc[-1]), _fields_at(loc[:-1], raw))
+            if match and loc[:-1] + (match,) in missing:
+                misspelt[loc[:-1] + (match,)] = loc
+    out, seen = [], set()
+    for loc, e in cleaned:
+        if loc in seen or loc in misspelt:
+            continue
+        seen.add(loc)
+        out.append(_message(path, loc, e, raw, set(misspelt)))
+    return out
+
+
+def _message(path: Path, loc: tuple, error: dict, raw: dict, misspelt: set) -> str:
     text = ".".join(str(p) for p in loc)
-    if error["type"] == "extra_forbidden":
+    kind = error["type"]
+    if kind == "extra_forbidden":
         fields = _fields_at(loc[:-1], raw)
-        hint = errors.closest(str(loc[-1]), fields) if fields else ""
+        match = errors.closest_name(str(loc[-1]), fields) if fields else None
+        hint = ""
+        if match:
+            hint = f" (did you mean '{match}'?{' it is required and missing' if loc[:-1] + (match,) in misspelt else ''})"
         valid = f"; valid keys: {', '.join(fields)}" if fields else ""
         return f"{path}: unknown key '{text}'{hint}{valid}"
-    if error["type"] == "missing":
-        return f"{path}: missing required key '{text}'"
+    if kind == "missing":
+        return f"{path}: missing required key '{text}'{_about(loc, raw)}"
+    if kind == "union_tag_not_found":
+        return f"{path}: missing required key '{text}.kind' (the stage kind: {', '.join(KINDS)})"
+    if kind == "union_tag_invalid":
+        tag = str(error.get("ctx", {}).get("tag"))
+        return (f"{path}: {text}.kind: '{tag}' is not a stage kind{errors.closest(tag, KINDS)}; "
+                f"valid kinds: {', '.join(KINDS)}")
     message = error["msg"].removeprefix("Value error, ")
-    return f"{path}: {text}: {message} (got {error.get('input')!r})"
+    if kind == "literal_error" and isinstance(error.get("input"), str):
+        message += errors.closest(error["input"], re.findall(r"'([^']*)'", error.get("ctx", {}).get("expected", "")))
+    if "got " not in message:
+        message += f" (got {error.get('input')!r})"
+    return f"{path}: {text}: {message}"
 
 
-def _clean(loc: tuple) -> tuple:
-    """Drop the discriminator tags pydantic puts into the key path of a stage (stages.NAME.heat.key)."""
+def _about(loc: tuple, raw: dict) -> str:
+    """What a missing key holds: its description and, for a fixed set of words, the choices."""
+    model = _model_at(loc[:-1], raw)
+    field = model.model_fields.get(str(loc[-1])) if model else None
+    if field is None:
+        return ""
+    words = []
+    if field.description:
+        words.append(field.description)
+    choices = typing.get_args(field.annotation) if typing.get_origin(field.annotation) is Literal else ()
+    if choices:
+        words.append("one of " + ", ".join(repr(c) for c in choices))
+    return f" ({'; '.join(words)})" if words else ""
+
+
+def _clean(loc: tuple, raw: dict) -> tuple:
+    """The key path as the user wrote it: without the discriminator tags pydantic puts into a stage's path
+    (stages.NAME.heat.key) and without the tags of union members below a plain value."""
     out = list(loc)
-    if len(out) > 2 and out[0] == "stages" and out[2] in ("heat", "map", "stress"):
+    if len(out) > 2 and out[0] == "stages" and out[2] in KINDS:
         del out[2]
-    return tuple(out)
+    kept, node = [], raw
+    for part in out:
+        if isinstance(node, dict):
+            node = node.get(part)
+        elif isinstance(node, list) and isinstance(part, int):
+            node = node[part] if 0 <= part < len(node) else None
+        elif node is not None:
+            break  # below a plain value: the name of a union member, not a key
+        kept.append(part)
+    return tuple(kept)
 
 
 def _fields_at(loc: tuple, raw: dict) -> list[str]:
     """Valid keys of the schema table at a key path (empty inside free-form tables)."""
+    model = _model_at(loc, raw)
+    return list(model.model_fields) if model else []
+
+
+def _model_at(loc: tuple, raw: dict) -> type[BaseModel] | None:
+    """The schema model of the table at a key path, or None inside free-form tables."""
     model: type[BaseModel] | None = Workflow
     keys = list(loc)
     if keys[:1] == ["stages"] and len(keys) >= 2:  # a stage's schema follows from its kind
-        stage = (raw.get("stages") or {}).get(keys[1])
+        stages = raw.get("stages") if isinstance(raw, dict) else None
+        stage = stages.get(keys[1]) if isinstance(stages, dict) else None
         kind = stage.get("kind") if isinstance(stage, dict) else None
-        model = {"heat": HeatStage, "map": MapStage, "stress": StressStage}.get(kind)
+        model = {"heat": HeatStage, "map": MapStage, "stress": StressStage}.get(kind) if isinstance(kind, str) else None
         keys = keys[2:]
         if model is None:
-            return []
+            return None
     while keys:
         field = model.model_fields.get(str(keys.pop(0)))
         if field is None:
-            return []
+            return None
         ann = field.annotation
         sub = getattr(ann, "__args__", None)
         if isinstance(ann, type) and issubclass(ann, BaseModel):
@@ -281,5 +401,5 @@ def _fields_at(loc: tuple, raw: dict) -> list[str]:
             if keys:
                 keys.pop(0)  # the table's own key (a part or surface name)
         else:
-            return []
-    return list(model.model_fields)
+            return None
+    return model

@@ -111,6 +111,18 @@ class Domain:
         tri = self.points[self.mesh.facets[:, facets].T]
         return 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1)
 
+    def contains(self, points: np.ndarray) -> np.ndarray:
+        """Whether each point (n, 3) [m] lies in some tetrahedron."""
+        finder = self.mesh.element_finder()
+        out = np.zeros(len(points), dtype=bool)
+        for i, xyz in enumerate(np.asarray(points, dtype=float).reshape(-1, 3)):
+            try:
+                finder(*xyz.reshape(3, 1))
+                out[i] = True
+            except ValueError:
+                pass
+        return out
+
     def boundary_facets(self) -> np.ndarray:
         """Facet ids on the outer boundary of the whole mesh."""
         return self.mesh.boundary_facets()
@@ -165,8 +177,10 @@ def load(path: str | Path, unit: str) -> Domain:
     factor = length_factor(unit, where=f"{path}: length unit")
     if not path.is_file():
         raise errors.MeshError(f"{path}: mesh file not found")
+    content = path.read_bytes()
+    _check_gmsh_names(content, str(path))
     m = read_meshio(path)
-    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    digest = hashlib.sha256(content).hexdigest()
     return from_meshio(m, unit=unit, factor=factor, source=str(path), source_hash=digest)
 
 
@@ -181,7 +195,39 @@ def read_meshio(path: Path):
             return meshio.read(path)
     except (Exception, SystemExit) as exc:  # meshio raises many types, and exits, on unreadable files
         detail = " ".join(chatter.getvalue().split()) or f"{type(exc).__name__}: {exc}"
-        raise errors.MeshError(f"{path}: meshio cannot read this file ({detail})") from None
+        raise errors.MeshError(f"{path}: meshio cannot read this file ({detail}); give a whole mesh file in a format "
+                               "meshio reads (Gmsh MSH 2.2 or 4.1, VTU, ...) with tetrahedra") from None
+
+
+def _check_gmsh_names(content: bytes, where: str) -> None:
+    """Names in a Gmsh file's $PhysicalNames section must be unique: meshio keeps one group per name, so a
+    repeated name would silently merge or drop a group.  The section is text in ASCII and binary files."""
+    start = content.find(b"$PhysicalNames")
+    end = content.find(b"$EndPhysicalNames", start)
+    if start < 0 or end < 0:
+        return
+    kinds = {2: "surface", 3: "volume"}
+    seen: dict[str, tuple[int, int]] = {}
+    problems = []
+    for line in content[start:end].decode("utf-8", "replace").splitlines()[2:]:
+        fields = line.split(maxsplit=2)
+        if len(fields) < 3 or not fields[0].isdigit() or not fields[1].isdigit():
+            continue
+        dim, tag, name = int(fields[0]), int(fields[1]), fields[2].strip().strip('"')
+        if dim not in kinds:
+            continue
+        if name in seen:
+            odim, otag = seen[name]
+            if odim == dim:
+                problems.append(f"{where}: two {kinds[dim]} groups share the name '{name}' (tags {otag} and {tag}); "
+                                "names must be unique: rename one in the mesher")
+            else:
+                problems.append(f"{where}: the name '{name}' is both a volume group and a surface group; names must "
+                                "be unique: rename one in the mesher")
+        else:
+            seen[name] = (dim, tag)
+    if problems:
+        raise errors.MeshError(problems)
 
 
 def from_meshio(m, unit: str = "m", factor: float | None = None, source: str = "", source_hash: str = "") -> Domain:
@@ -386,9 +432,11 @@ def _check_volumes(points: np.ndarray, tet: np.ndarray, where: str) -> None:
     inverted = np.setdiff1d(inverted, degenerate)
     problems = []
     if len(degenerate):
-        problems.append(f"{where}: {len(degenerate)} degenerate (zero-volume) tetrahedra, ids {_ids(degenerate)}")
+        problems.append(f"{where}: {len(degenerate)} degenerate (zero-volume) tetrahedra, ids {_ids(degenerate)}; "
+                        "every tetrahedron needs four corners not in one plane: re-mesh (in Gmsh: optimise the mesh)")
     if len(inverted):
-        problems.append(f"{where}: {len(inverted)} inverted tetrahedra (negative volume), ids {_ids(inverted)}")
+        problems.append(f"{where}: {len(inverted)} inverted tetrahedra (negative volume), ids {_ids(inverted)}; "
+                        "corners must be ordered as Gmsh and VTK write them (positive volume): re-export the mesh")
     if problems:
         raise errors.MeshError(problems)
 

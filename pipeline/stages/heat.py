@@ -118,6 +118,11 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
                                     "not on its boundary; convection and flux need a boundary surface")
     problems += _value_problems(spec, where)
     fem.check_probes(domain, spec.probes, where, problems)
+    if spec.order in fem.ORDERS and not problems:
+        try:
+            solvers.check_memory(fem.space(domain, spec.order).N, spec.order, 1, spec.solver, spec.memory_limit, where)
+        except errors.InputError as exc:
+            problems += exc.problems
     if problems:
         raise errors.InputError(problems)
 
@@ -158,7 +163,6 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     check(domain, spec, where)
     _check_heat_can_leave(domain, spec, where)
     start = time.perf_counter()
-    solvers.check_memory(fem.space(domain, spec.order).N, spec.order, 1, spec.solver, spec.memory_limit, where)
     problem = _Problem(domain, spec)
     space, geom, ref = problem.space, problem.geom, problem.ref
 
@@ -194,6 +198,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
         T[dofs] = value(space.doflocs[:, dofs]) if callable(value) else value
         fixed = np.union1d(fixed, dofs)
     free = np.setdiff1d(np.arange(space.N), fixed)
+    assembled = time.perf_counter() - start
     T, record, newton, outside = _newton(problem, T, free, spec, where)
 
     reaction = problem.residual(T)  # nodal heat supplied through fixed-temperature dofs [W]
@@ -213,7 +218,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
         probes=_probe_values(domain, spec.order, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
         domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
-                                              "newton": newton},
+                                              "assembly_seconds": assembled, "newton": newton},
     )
 
 

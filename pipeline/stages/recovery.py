@@ -82,8 +82,11 @@ def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int, loa
             driver, strength = np.maximum(elements["principal"][ids, 0], 0.0), m.tensile_strength
         else:
             driver, strength = elements["von_mises"][ids], m.yield_strength or m.tensile_strength
-        with np.errstate(divide="ignore"):
-            elements["safety"][ids] = np.where(driver > 0, strength / np.maximum(driver, 1e-300), np.inf)
+        if not strength:  # no strength given: no safety factor (NaN), the part's figures say so
+            elements["safety"][ids] = np.nan
+            continue
+        loaded = driver > 0
+        elements["safety"][ids[loaded]] = strength / driver[loaded]
     return parts, elements, nodal_by_part
 
 

@@ -208,11 +208,14 @@ def check_memory(unknowns: int, order: int, components: int, method: str, limit:
     need = estimate_memory(unknowns, order, components, chosen)
     room = int(limit) if limit is not None else available_memory()
     if need > room:
-        gib = 2.0**30
         other = "; the AMG solver (solver = \"amg\") needs less" if chosen == "direct" else ""
+        coarser = "use a coarser mesh" + (" or order = 1" if order > 1 else "")
         raise errors.InputError(
             f"{where}: the model has {unknowns:,} unknowns (P{order}, {components} per point) and needs about "
-            f"{need / gib:.1f} GiB with the {chosen} solver, but {room / gib:.1f} GiB "
-            f"{'is the memory_limit' if limit is not None else 'is available'}; use a coarser mesh or order = 1"
-            f"{other}")
+            f"{_size(need)} with the {chosen} solver, but {_size(room)} "
+            f"{'is the memory_limit' if limit is not None else 'is available'}; {coarser}{other}")
     return need
+
+
+def _size(n: float) -> str:
+    return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"

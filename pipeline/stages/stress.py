@@ -83,6 +83,12 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         if m.kind == "isotropic" and not -1 < m.poisson_ratio[0] < 0.5:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
     fem.check_probes(domain, spec.probes, where, problems)
+    if spec.order in fem.ORDERS and not problems:
+        try:
+            solvers.check_memory(3 * fem.space(domain, spec.order).N, spec.order, 3, spec.solver, spec.memory_limit,
+                                 where)
+        except errors.InputError as exc:
+            problems += exc.problems
     if problems:
         raise errors.InputError(problems)
 
@@ -94,10 +100,8 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     (p-1) + the temperature's order; loads and springs 2p; recovery 2p."""
     check(domain, spec, where)
     start = time.perf_counter()
-    space = fem.space(domain, spec.order)
+    space, geom = fem.space(domain, spec.order), fem.geometry(domain)
     n = 3 * space.N
-    solvers.check_memory(n, spec.order, 3, spec.solver, spec.memory_limit, where)
-    geom = fem.geometry(domain)
     rows, pdofs, xyz = supports.gather(domain, space, spec.supports, where)
     spring_points = [space.facet_dofs(domain.surfaces[name]) for name, s in spec.supports.items() if s.kind == "spring"]
     supports.free_motions(domain, rows, xyz, np.concatenate(spring_points) if spring_points else
@@ -140,6 +144,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
             springs[name] = kernels.Facets(space, geom, domain.surfaces[name], degree).vector_mass(s.stiffness)
             K = K + springs[name]
 
+    assembled = time.perf_counter() - start
     u, record = _solve_constrained(K.tocsr(), f_thermal + f_mech, constraints, space, spec.solver)
     residual = K @ u - f_thermal - f_mech  # nodal reactions at constrained points [N]
     reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
@@ -156,7 +161,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
-        meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
+        meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
               "stress_order": "xx, yy, zz, yz, xz, xy"},
     )
 

@@ -1,0 +1,484 @@
+"""The verification cases: for each, the mesh it is run on at each level and the checks, with the
+closed form or published value, its source and the reason for the tolerance.
+
+The physical inputs (conductivities, temperatures, film coefficients, moduli) are read from the case's
+workflow file after validation (SI), so the closed form and the run cannot disagree about them; the
+geometry is the mesh written here.  The reasoning and sources are those of the test suite
+(tests/test_heat.py, test_heat_nonlinear.py, test_stress.py, test_mapping.py, test_chain.py).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import Case, Check, manufactured, shipped_mesh
+from . import meshes as mk
+
+INC, TG, NAFEMS = "[INC]", "[TG] ch. 13", "[NAFEMS]"
+#: the short keys used in the table's source column, spelt out below the table
+SOURCES = {
+    "[INC]": "F.P. Incropera, D.P. DeWitt, T.L. Bergman, A.S. Lavine, Fundamentals of Heat and Mass Transfer, "
+             "6th ed., Wiley, 2007 (section and equation numbers from memory; they can differ between editions)",
+    "[TG]": "S.P. Timoshenko, J.N. Goodier, Theory of Elasticity, 3rd ed., McGraw-Hill, 1970",
+    "[NAFEMS]": "NAFEMS Ltd, The Standard NAFEMS Benchmarks, TNSB Rev. 3, 1990 (values as recalled, checked "
+                "against secondary public descriptions; no copy of the publication was read)",
+    "[MMS]": "P.J. Roache, Code verification by the method of manufactured solutions, J. Fluids Eng. 124(1), "
+             "4-10, 2002; K. Salari, P. Knupp, SAND2000-1444, 2000",
+    "[CIA]": "P.G. Ciarlet, The Finite Element Method for Elliptic Problems, North-Holland, 1978, ch. 3",
+}
+EXACT = "the exact field lies in the element space: only solver round-off remains"
+#: tolerance of a case whose exact solution lies in the element space: the linear solve stops at a
+#: relative residual of 1e-10 (solvers.py), and these small, well-conditioned systems turn that into
+#: errors of 1e-10 or less (measured); 1e-8 leaves room for a change of solver, not for a wrong answer
+ROUND_OFF = 1e-8
+SIGMA = 5.670374419e-8  # Stefan-Boltzmann constant, W/(m^2 K^4) (CODATA 2018)
+SAME = {"quick": None, "default": None, "fine": None}  # exact cases: one mesh at every level
+
+
+def balance(field, name: str) -> float:
+    """Heat into the body through surface ``name`` [W]."""
+    return sum(r["heat_in_W"] for r in field.balance if r["name"] == name)
+
+
+def heat_stage(run):
+    return run.workflow.stages["heat"]
+
+
+# ---------------------------------------------------------------------------------------------
+# Heat: closed forms
+
+def slab_mesh(work, _):
+    mk.box(work / "heat_slab.msh", mk.planes(0, 0.05, 8), mk.planes(0, 0.02, 3), mk.planes(0, 0.01, 2), jitter=0.25)
+
+
+def slab_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    k, L, area = run.material("wall").conductivity[0], 0.05, 0.02 * 0.01
+    t1, t2 = h.fixed_temperature["xmin"], h.fixed_temperature["xmax"]
+    x = run.workflow.probes["inside"][0]
+    span = f"the {t1 - t2:g} K span"
+    return [
+        Check("T at a probe inside", "degC", t1 + (t2 - t1) * x / L, f"{INC}, sec. 3.1 (plane wall)", ROUND_OFF, EXACT,
+              f.probes["inside"], scale=t1 - t2, scale_text=span),
+        Check("heat in through xmin", "W", k * area * (t1 - t2) / L, f"{INC}, sec. 3.1, q'' = k (T1 - T2) / L", ROUND_OFF,
+              EXACT, balance(f, "xmin")),
+    ]
+
+
+def generation_mesh(work, _):
+    mk.box(work / "heat_generation.msh", mk.planes(-0.01, 0.01, 6), mk.planes(0, 0.004, 2), mk.planes(0, 0.004, 2),
+           jitter=0.2)
+
+
+def generation_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    k, q, L, ts = run.material("wall").conductivity[0], h.generation["body"], 0.01, h.fixed_temperature["xmin"]
+    rise = q * L**2 / (2 * k)
+    return [Check("T at the centre (peak)", "degC", ts + rise, f"{INC}, sec. 3.5.1, T_max = T_s + q L^2 / (2k)", ROUND_OFF,
+                  "the quadratic profile lies in the P2 space: only round-off remains", f.probes["centre"],
+                  scale=rise, scale_text=f"the {rise:g} K rise")]
+
+
+def composite_mesh(work, _):
+    l1, l2 = 3e-3, 1.6e-3
+    xs = np.concatenate([mk.planes(0, l1, 3), mk.planes(l1, l1 + l2, 4)[1:]])
+    mk.box(work / "heat_composite.msh", xs, mk.planes(0, 0.01, 2), mk.planes(0, 0.01, 2),
+           parts={"plate": (0, 0, l1), "board": (0, l1, l1 + l2)})
+
+
+def composite_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    l1, l2, area = 3e-3, 1.6e-3, 1e-4
+    c1, c2 = h.convection["xmin"], h.convection["xmax"]
+    k1, k2 = run.material("plate").conductivity[0], run.material("board").conductivity[0]
+    flux = (c1.ambient - c2.ambient) / (1 / c1.film_coefficient + l1 / k1 + l2 / k2 + 1 / c2.film_coefficient)
+    span = c1.ambient - c2.ambient
+    src = f"{INC}, sec. 3.1 (composite wall, thermal circuit)"
+    why = "each layer's profile is linear and the interface is an element face: P1 is exact, round-off remains"
+    return [
+        Check("heat in through xmin", "W", flux * area, src, ROUND_OFF, why, balance(f, "xmin")),
+        Check("T at the aluminium/FR-4 interface", "degC", c1.ambient - flux * (1 / c1.film_coefficient + l1 / k1),
+              src, ROUND_OFF, why, f.probes["interface"], scale=span, scale_text=f"the {span:g} K span"),
+        Check("T of the FR-4's cooled face", "degC", c2.ambient + flux / c2.film_coefficient, src, ROUND_OFF, why,
+              f.parts["board"]["min"], scale=span, scale_text=f"the {span:g} K span"),
+    ]
+
+
+def fin_mesh(work, n):
+    mk.box(work / "heat_fin.msh", mk.planes(0, 0.05, n), mk.planes(0, 5e-3, 2), mk.planes(0, 5e-3, 2),
+           surfaces={"base": ["xmin"], "air": ["xmax", "ymin", "ymax", "zmin", "zmax"]})
+
+
+def fin_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    k, a, L = run.material("aluminium").conductivity[0], 5e-3, 0.05
+    c, tb = h.convection["air"], h.fixed_temperature["base"]
+    m = np.sqrt(c.film_coefficient * 4 * a / (k * a * a))
+    hmk = c.film_coefficient / (m * k)
+    theta_tip = 1 / (np.cosh(m * L) + hmk * np.sinh(m * L))
+    big_m = np.sqrt(c.film_coefficient * 4 * a * k * a * a) * (tb - c.ambient)
+    q_fin = big_m * (np.sinh(m * L) + hmk * np.cosh(m * L)) / (np.cosh(m * L) + hmk * np.sinh(m * L))
+    src = f"{INC}, sec. 3.6.2, Table 3.4 case A (convective tip)"
+    why = ("1-D fin theory neglects the cross-section gradient, an O(Bi) = 7.5e-4 effect; P2 with 40 or more "
+           "elements along the pin is far more accurate than that")
+    rise = tb - c.ambient
+    return [
+        Check("T at the tip", "degC", c.ambient + theta_tip * rise, src, 2e-3, why, f.probes["tip"], scale=rise,
+              scale_text=f"the {rise:g} K base excess"),
+        Check("heat into the fin at its base", "W", q_fin, src, 2e-3, why, balance(f, "base")),
+    ]
+
+
+def radius(run, probe="mid", axes=3) -> float:
+    """Distance of a probe from the origin (axes=2: from the z axis) [m]."""
+    return float(np.linalg.norm(run.workflow.probes[probe][:axes]))
+
+
+def cylinder_mesh(work, n):
+    mk.box(work / "heat_cylinder.msh", mk.planes(0.05, 0.1, n), mk.planes(0, np.pi / 2, 3 * n), mk.planes(0, 0.01, 1),
+           shape=mk.annulus, surfaces={"inner": ["xmin"], "outer": ["xmax"], "planes": ["ymin", "ymax"],
+                                       "ends": ["zmin", "zmax"]})
+
+
+def cylinder_checks(run, n):
+    h, f = heat_stage(run), run.result("heat")
+    k, r1, r2, height = run.material("wall").conductivity[0], 0.05, 0.1, 0.01
+    t1, t2 = h.fixed_temperature["inner"], h.fixed_temperature["outer"]
+    why = (f"straight-sided facets approximate the circles: an O(h^2) geometric error, about 2e-4 at "
+           f"{3 * n} divisions of the quarter circle or more")
+    src = f"{INC}, sec. 3.3.1 (hollow cylinder)"
+    r = radius(run, axes=2)
+    return [
+        Check("T at the probe, r = 75 mm", "degC", t2 + (t1 - t2) * np.log(r / r2) / np.log(r1 / r2), src, 1e-3, why,
+              f.probes["mid"], scale=t1 - t2, scale_text=f"the {t1 - t2:g} K span"),
+        Check("heat per length q' (4 x the quarter)", "W/m", 2 * np.pi * k * (t1 - t2) / np.log(r2 / r1), src,
+              1e-3, why, balance(f, "inner") / height * 4),
+    ]
+
+
+POLAR = (np.pi / 4, np.pi / 2)
+
+
+def sphere_mesh(work, n):
+    mk.box(work / "heat_sphere.msh", mk.planes(0.05, 0.1, n), mk.planes(0, np.pi / 4, 1.5 * n),
+           mk.planes(*POLAR, 1.5 * n), shape=mk.spherical,
+           surfaces={"inner": ["xmin"], "outer": ["xmax"], "sides": ["ymin", "ymax", "zmin", "zmax"]})
+
+
+def sphere_checks(run, n):
+    h, f = heat_stage(run), run.result("heat")
+    k, r1, r2 = run.material("wall").conductivity[0], 0.05, 0.1
+    t1, t2 = h.fixed_temperature["inner"], h.fixed_temperature["outer"]
+    share = np.pi / 4 * (np.cos(POLAR[0]) - np.cos(POLAR[1])) / (4 * np.pi)  # solid angle / 4 pi
+    src = f"{INC}, sec. 3.3.2 (hollow sphere)"
+    why = "straight-sided facets: O(h^2) geometric error, about 1e-4 (chord) at this size"
+    return [
+        Check("T at the probe, r = 75 mm", "degC", t1 - (t1 - t2) * (1 - r1 / radius(run)) / (1 - r1 / r2), src,
+              1e-3, why, f.probes["mid"], scale=t1 - t2, scale_text=f"the {t1 - t2:g} K span"),
+        Check("heat through the sector's inner face", "W", 4 * np.pi * k * (t1 - t2) / (1 / r1 - 1 / r2) * share,
+              src, 2e-3, why + "; the flux converges one order lower than T", balance(f, "inner")),
+    ]
+
+
+def ortho_mesh(work, _):
+    mk.box(work / "heat_orthotropic.msh", *[mk.planes(0, 0.02, 4)] * 3, jitter=0.2)
+
+
+def ortho_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    k_x = run.material("laminate").conductivity[0]  # the material x axis points along model z
+    dt = h.fixed_temperature["zmin"] - h.fixed_temperature["zmax"]
+    return [Check("heat in through zmin (material x along model z)", "W", k_x * 0.02**2 * dt / 0.02,
+                  f"{INC}, sec. 3.1, with K = R^T diag(k) R (Carslaw and Jaeger, 2nd ed., sec. 1.17, from memory)",
+                  ROUND_OFF, EXACT, balance(f, "zmin"))]
+
+
+def kirchhoff_mesh(work, n):
+    mk.box(work / "heat_kirchhoff.msh", mk.planes(0, 0.05, n), mk.planes(0, 0.01, 2), mk.planes(0, 0.01, 2),
+           jitter=0.2)
+
+
+def kirchhoff_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    c0, c1 = run.material("wall").conductivity_polynomial
+    t1, t2, L = h.fixed_temperature["xmin"], h.fixed_temperature["xmax"], 0.05
+    potential = lambda t: c0 * t + c1 * t**2 / 2
+    flux = (potential(t1) - potential(t2)) / L
+    target = potential(t1) - flux * L / 2  # U is linear in x
+    t_mid = (-c0 + np.sqrt(c0**2 + 2 * c1 * target)) / c1
+    src = "Kirchhoff transform: Carslaw and Jaeger, Conduction of Heat in Solids, 2nd ed. (1959), sec. 1.7"
+    why = "the profile is not polynomial; P2 with 20 elements is accurate to about 1e-5"
+    return [
+        Check("T at mid-thickness", "degC", t_mid, src, 1e-4, why, f.probes["mid"], scale=t1 - t2,
+              scale_text=f"the {t1 - t2:g} K span"),
+        Check("heat in through xmin", "W", flux * 1e-4, src, 1e-4, why, balance(f, "xmin")),
+    ]
+
+
+def plate_mesh(work, _):
+    mk.box(work / "heat_plate.msh", mk.planes(0, 0.05, 5), mk.planes(0, 0.05, 5), mk.planes(0, 0.002, 1))
+
+
+PLATE_WHY = ("the plate is so conductive that its temperature is uniform to 1e-5 K; the Newton iteration "
+             "converges to far less")
+
+
+def radiation_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    r, power, area = h.radiation["zmax"], h.power["body"], 0.05**2
+    expected = (r.surroundings**4 + power / (r.emissivity * SIGMA * area)) ** 0.25
+    rise = expected - r.surroundings
+    return [Check("mean plate temperature", "degC", expected, f"{INC}, sec. 1.2.3, eq. 1.7 (from memory)", 1e-5,
+                  PLATE_WHY, f.parts["body"]["mean"], scale=rise, scale_text=f"the {rise:.4g} K rise")]
+
+
+def convection_radiation_checks(run, _):
+    from scipy.optimize import brentq
+
+    h, f = heat_stage(run), run.result("heat")
+    c, r, power, area = h.convection["zmax"], h.radiation["zmax"], h.power["body"], 0.05**2
+    loss = lambda t: area * (c.film_coefficient * (t - c.ambient) + r.emissivity * SIGMA * (t**4 - r.surroundings**4))
+    expected = brentq(lambda t: loss(t) - power, c.ambient, 2000.0, xtol=1e-12)
+    rise = expected - c.ambient
+    return [Check("mean plate temperature", "degC", expected, f"{INC}, sec. 1.3.1, eq. 1.12 (from memory)", 1e-5,
+                  PLATE_WHY, f.parts["body"]["mean"], scale=rise, scale_text=f"the {rise:.4g} K rise")]
+
+
+def power_law_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    c, power, area = h.convection["zmax"], h.power["body"], 0.05**2
+    rise = c.reference_difference * (power / (area * c.film_coefficient * c.reference_difference)) ** (
+        1 / (1 + c.exponent))
+    return [Check("mean plate temperature", "degC", c.ambient + rise,
+                  f"balance P = A h0 dT^(1+n) / dT0^n, power law of {INC}, ch. 9 (from memory)", 1e-5, PLATE_WHY,
+                  f.parts["body"]["mean"], scale=rise, scale_text=f"the {rise:.4g} K rise")]
+
+
+def t4_mesh(work, n):
+    mk.box(work / "t4.msh", mk.planes(0, 0.6, 6 * n), mk.planes(0, 1.0, 10 * n), mk.planes(0, 0.05, 1))
+
+
+def t4_checks(run, n):
+    f = run.result("heat")
+    return [Check("T at E (0.6, 0.2)", "degC", 18.3 + 273.15, f"{NAFEMS}, test T4",
+                  1e-2, "the target has three significant figures; 1 % is common practice",
+                  f.probes["E"], scale=18.3, scale_text="18.3 degC")]
+
+
+# ---------------------------------------------------------------------------------------------
+# Thermoelastic: closed forms through heat -> map -> stress
+
+def bar_mesh(work, _):
+    mk.box(work / "bar.msh", mk.planes(0, 0.1, 5), mk.planes(0, 0.02, 2), mk.planes(0, 0.02, 2), jitter=0.2)
+
+
+def _thermal(run, part="aluminium"):
+    m = run.material(part)
+    dt = run.workflow.stages["heat"].fixed_temperature["xmin"] - run.workflow.stages["map"].reference
+    return m.youngs_modulus[0], m.poisson_ratio[0], m.expansion[0], dt
+
+
+def _furthest(values: np.ndarray, expected: float) -> float:
+    """The value furthest from ``expected`` (so one check bounds them all)."""
+    values = np.asarray(values, dtype=float).ravel()
+    return float(values[np.argmax(np.abs(values - expected))])
+
+
+def free_checks(run, _):
+    e, _, alpha, dt = _thermal(run)
+    s = run.result("stress")
+    u = s.displacement[:, 0]
+    return [
+        Check("lengthening of the bar", "mm", alpha * dt * 0.1, f"{TG} (free expansion)", ROUND_OFF,
+              "linear displacement lies in the element space: round-off only", float(u.max() - u.min())),
+        Check("largest von Mises stress", "MPa", 0.0, f"{TG}: a free body under uniform dT is stress-free", ROUND_OFF,
+              "exact to round-off: the minimal support must not restrain the expansion",
+              s.parts["body"]["von_mises_max_Pa"], scale=e * alpha * dt, scale_text="E alpha dT"),
+    ]
+
+
+def restrained_checks(axes):
+    def checks(run, _):
+        e, nu, alpha, dt = _thermal(run)
+        expected = -e * alpha * dt * {1: 1.0, 2: 1 / (1 - nu), 3: 1 / (1 - 2 * nu)}[axes]
+        formula = {1: "-E alpha dT", 2: "-E alpha dT / (1 - nu)", 3: "-E alpha dT / (1 - 2 nu)"}[axes]
+        s = run.result("stress")
+        return [Check(f"sigma_{c}{c} in every element", "MPa", expected, f"{TG}, sigma = {formula}", ROUND_OFF,
+                      "uniform stress lies in the element space: round-off only", _furthest(s.stress[:, i], expected))
+                for i, c in enumerate("xyz"[:axes])]
+    return checks
+
+
+def layers_mesh(work, _):
+    mk.box(work / "stress_layers.msh", *[mk.planes(0, 0.02, 4)] * 3,
+           parts={"copper": (0, 0, 0.01), "ceramic": (0, 0.01, 0.02)})
+
+
+def layers_checks(run, _):
+    w, s, d = run.workflow, run.result("stress"), run.domain("stress")
+    t = w.stages["heat"].fixed_temperature["xmin"]
+    refs = {"copper": w.stages["map"].reference, "ceramic": w.stages["map"].reference_by_part["ceramic"]}
+    lame = {}
+    for part, name in (("copper", "copper"), ("ceramic", "alumina")):
+        m = run.material(name)
+        e, nu, a = m.youngs_modulus[0], m.poisson_ratio[0], m.expansion[0]
+        lam, mu = e * nu / ((1 + nu) * (1 - 2 * nu)), e / (2 * (1 + nu))
+        lame[part] = (lam, lam + 2 * mu, (3 * lam + 2 * mu) * a * (t - refs[part]))
+    # equal sigma_xx = M_i eps_i - b_i in both layers, and eps_1 + eps_2 = 0 (equal lengths, held faces)
+    sxx = -sum(b / m for _, m, b in lame.values()) / sum(1 / m for _, m, _ in lame.values())
+    src = f"{TG} (stress-strain relations with thermal strain); layered solution derived for this case"
+    why = "piecewise-linear displacement with the interface on element faces: P2 is exact, round-off remains"
+    out = [Check("sigma_xx in both layers", "MPa", sxx, src, ROUND_OFF, why,
+                 _furthest(s.stress[:, 0], sxx))]
+    for part, (lam, m, b) in lame.items():
+        expected = lam * (sxx + b) / m - b
+        out.append(Check(f"sigma_yy in the {part}", "MPa", expected, src, ROUND_OFF, why,
+                         _furthest(s.stress[d.parts[part], 1], expected)))
+    return out
+
+
+def bimetal_mesh(work, n):
+    mk.box(work / "stress_bimetal.msh", mk.planes(0, 0.06, n), mk.planes(0, 3e-3, 2), mk.planes(0, 2e-3, 4),
+           parts={"low": (2, 0, 1e-3), "high": (2, 1e-3, 2e-3)})
+
+
+def bimetal_checks(run, _):
+    s, d = run.result("stress"), run.domain("stress")
+    low, high = run.material("low"), run.material("high")
+    dt = run.workflow.stages["heat"].fixed_temperature["xmin"] - run.workflow.stages["map"].reference
+    L, t, w = 0.06, 1e-3, 3e-3
+    kappa = 3 * (high.expansion[0] - low.expansion[0]) * dt / (2 * 2 * t)
+    p = d.points
+    uz = s.displacement[: len(p), 2]  # vertex values (P2 vertex dofs come first)
+    mid = (np.abs(p[:, 2] - t) < 1e-9) & (np.abs(p[:, 1] - w / 2) < 1e-9) & (p[:, 0] > 0.2 * L) & (p[:, 0] < 0.8 * L)
+    curvature = -2 * np.polyfit(p[mid, 0], uz[mid], 2)[0]  # positive: the mid-plane bulges towards the layer that expands more
+    return [Check("curvature of the mid-plane (middle 60 %)", "1/m", kappa,
+                  "S. Timoshenko, Analysis of bi-metal thermostats, J. Opt. Soc. Am. 11(3), 1925: "
+                  "1/rho = 3 da dT / (2h) for equal layers", 1e-2,
+                  "P2 with two elements per layer, read away from the free-end shear-lag zones; 1 % bounds "
+                  "discretisation and end effects (measured in tests/test_stress.py)", float(curvature))]
+
+
+def cantilever_mesh(work, n):
+    mk.box(work / "stress_cantilever.msh", mk.planes(0, 0.2, 10 * n), mk.planes(0, 0.01, n), mk.planes(0, 0.01, n))
+
+
+def cantilever_checks(run, _):
+    s, steel = run.result("stress"), run.material("steel")
+    load = -run.workflow.stages["stress"].force["xmax"][2]
+    L, a = 0.2, 0.01
+    return [
+        Check("tip deflection", "mm", load * L**3 / (3 * steel.youngs_modulus[0] * a**4 / 12),
+              "Gere and Goodno, Mechanics of Materials, beam-deflection table: P L^3 / (3 E I)", 1e-2,
+              "a 3-D solid adds shear deflection (+0.19 %, Timoshenko beam); the clamp and the discretisation "
+              "stiffen it; measured net -0.41 % with P2 and 3 x 3 elements across, -0.31 % with 4 x 4",
+              -s.probes["tip"]["displacement_m"][2]),
+        Check("reaction on the clamped face", "N", load, "statics", 1e-6,
+              "equilibrium holds to the linear solver's residual; 1e-6 is the largest it accepts (solvers.py)",
+              s.reactions["xmin"][2]),
+    ]
+
+
+def cross_mesh(work, _):
+    box = (mk.planes(0, 0.04, 4), mk.planes(0, 0.02, 2), mk.planes(0, 0.02, 2))
+    mk.box(work / "thermal.msh", *box, jitter=0.2, seed=1)
+    mk.box(work / "structure.msh", mk.planes(0, 0.04, 6), mk.planes(0, 0.02, 3), mk.planes(0, 0.02, 3), jitter=0.2,
+           seed=2)
+
+
+def cross_checks(run, _):
+    w, s = run.workflow, run.result("stress")
+    m = run.material("aluminium")
+    span = w.stages["heat"].fixed_temperature["xmin"] - w.stages["heat"].fixed_temperature["xmax"]
+    load = run.result("map")
+    return [
+        Check("largest von Mises stress", "MPa", 0.0, f"{TG}; Boley and Weiner (1960): linear T in a free body",
+              ROUND_OFF, "the mapped field stays linear and the displacement is quadratic (in P2): round-off only",
+              s.parts["body"]["von_mises_max_Pa"], scale=m.youngs_modulus[0] * m.expansion[0] * span,
+              scale_text="E alpha dT"),
+        Check("points of the structure outside the thermal mesh", "-", 0.0, "both meshes fill the same box", 0.0,
+              "none may be outside", float(load.diagnostics["outside"]), scale=1.0),
+    ]
+
+
+def le11_prepare(work, mesh_file):
+    """Copy the Gmsh mesh and write T = r + z [degC] at every node and mid-edge point (the P2 nodes)."""
+    import shutil
+
+    from skfem import Basis, ElementTetP2
+
+    from ..model import mesh as mesh_mod
+
+    shutil.copyfile(shipped_mesh(mesh_file), work / "le11.msh")
+    x = Basis(mesh_mod.load(work / "le11.msh", unit="m").mesh, ElementTetP2()).doflocs
+    t = np.hypot(x[0], x[1]) + x[2]
+    np.savetxt(work / "le11_temperature.csv", np.column_stack([x.T, t]), delimiter=",", fmt="%.17g",
+               header="x_m,y_m,z_m,T_degC", comments="")
+
+
+def le11_checks(run, mesh_file):
+    s, d = run.result("stress"), run.domain("stress")
+    node = int(np.argmin(np.linalg.norm(d.points - [1.0, 0.0, 0.0], axis=1)))
+    h = mesh_file.removeprefix("le11_h").removesuffix(".msh")
+    return [Check(f"sigma_zz at A (1, 0, 0), h = {h} m", "MPa", -105e6, f"{NAFEMS}, test LE11", 3e-2,
+                  "3 % is common practice for P2 tetrahedra at h <= 0.1 m; A is a weakly singular corner where "
+                  "point values converge at first order", float(s.nodal_stress("body", node)[2]))]
+
+
+# ---------------------------------------------------------------------------------------------
+
+def _case(name, title, workflow, prepare, checks, levels=SAME, note=""):
+    return Case(name, title, dict(levels), checks, workflow, prepare, note)
+
+
+SIZES = lambda quick, default, fine: {"quick": quick, "default": default, "fine": fine}
+
+CASES = {c.name: c for c in [
+    _case("heat_slab", "plane wall between fixed temperatures (P1, distorted mesh)", "heat_slab.toml",
+          slab_mesh, slab_checks),
+    _case("heat_generation", "plane wall with uniform generation (P2)", "heat_generation.toml",
+          generation_mesh, generation_checks),
+    _case("heat_composite", "composite wall, convection on both faces (two parts)", "heat_composite.toml",
+          composite_mesh, composite_checks),
+    _case("heat_fin", "pin fin with a convective tip (P2)", "heat_fin.toml", fin_mesh, fin_checks,
+          SIZES(40, 40, 80)),
+    _case("heat_cylinder", "hollow cylinder, quarter (P2)", "heat_cylinder.toml", cylinder_mesh, cylinder_checks,
+          SIZES(8, 8, 16)),
+    _case("heat_sphere", "hollow sphere, sector (P2)", "heat_sphere.toml", sphere_mesh, sphere_checks,
+          SIZES(8, 8, 16)),
+    _case("heat_orthotropic", "orthotropic block with turned material axes", "heat_orthotropic.toml",
+          ortho_mesh, ortho_checks),
+    _case("heat_kirchhoff", "conductivity linear in T, Newton (P2)", "heat_kirchhoff.toml", kirchhoff_mesh,
+          kirchhoff_checks, SIZES(20, 20, 40)),
+    _case("heat_radiation", "radiation only, Newton", "heat_radiation.toml", plate_mesh, radiation_checks),
+    _case("heat_convection_radiation", "convection and radiation together", "heat_convection_radiation.toml",
+          plate_mesh, convection_radiation_checks),
+    _case("heat_power_law", "power-law convection, Newton", "heat_power_law.toml", plate_mesh, power_law_checks),
+    _case("nafems_t4", "NAFEMS T4, 2-D conduction with convection, as a 3-D slab with adiabatic faces (P2)",
+          "t4.toml", t4_mesh, t4_checks, SIZES(1, 2, 8),
+          note="The 2-D rectangle 0.6 x 1.0 m becomes a slab 50 mm thick with adiabatic faces z = const: nothing "
+               "varies through the thickness, so the 3-D answer is the 2-D one. AB (y = 0) at 100 degC, DA (x = 0) "
+               "insulated, BC and CD convect to 0 degC with h = 750 W/(m^2 K), k = 52 W/(m K). Mesh: 6n x 10n x 1 "
+               "hexahedra of six tetrahedra (h = 0.1/n m); n = 1, 2, 8 at quick, default, fine."),
+    _case("stress_free", "free expansion, minimal support (heat -> map -> stress)", "stress_free.toml",
+          bar_mesh, free_checks),
+    _case("stress_bar", "bar restrained axially (heat -> map -> stress)", "stress_bar.toml", bar_mesh,
+          restrained_checks(1)),
+    _case("stress_plate", "plate restrained in its plane", "stress_plate.toml", bar_mesh, restrained_checks(2)),
+    _case("stress_block", "block restrained on every face", "stress_block.toml", bar_mesh, restrained_checks(3)),
+    _case("stress_layers", "bonded layers, own expansion and stress-free temperature", "stress_layers.toml",
+          layers_mesh, layers_checks),
+    _case("stress_bimetal", "bimetallic strip curvature (P2)", "stress_bimetal.toml", bimetal_mesh, bimetal_checks,
+          SIZES(20, 60, 60), note="Mesh: n x 2 x 4 hexahedra along, across and through; n = 20, 60, 60."),
+    _case("stress_cantilever", "cantilever with a tip load (P2)", "stress_cantilever.toml", cantilever_mesh,
+          cantilever_checks, SIZES(3, 4, 4), note="Mesh: 10n x n x n hexahedra; n = 3, 4, 4."),
+    _case("stress_cross_mesh", "linear temperature mapped to another mesh, free body", "stress_cross_mesh.toml",
+          cross_mesh, cross_checks),
+    _case("nafems_le11", "NAFEMS LE11, prescribed T = r + z, P2 on Gmsh meshes", "le11.toml", le11_prepare,
+          le11_checks, SIZES("le11_h0.1.msh", "le11_h0.1.msh", "le11_h0.07.msh"),
+          note="T = r + z degC is given to the map stage as a point field at every node and mid-edge point "
+               "(a CSV file written at run time), so the P2 load is the prescribed field. Quarter model; Gmsh "
+               "meshes h = 0.1 m (quick, default) and 0.07 m (fine), shipped in pipeline/verification/cases/meshes "
+               "(made by cases/le11/make_mesh.py)."),
+    *manufactured.CASES,
+]}
