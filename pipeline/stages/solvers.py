@@ -22,12 +22,11 @@ from .. import errors
 
 log = logging.getLogger(__name__)
 
-#: Unknowns up to which "auto" takes the sparse direct solver; above it AMG-preconditioned CG.
-#: benchmarks/solvers.py measures both (docs/performance.md): AMG is faster from a few thousand
-#: unknowns on compact bodies, but smoothed aggregation converges poorly on slender P2 models (a
-#: 20:1 cantilever with 4 x 4 elements across: residual 3e-6 after 300 iterations), so small models,
-#: where SuperLU takes about a second, go to the direct solver.
-DIRECT_LIMIT = 20_000
+#: Unknowns up to which "auto" takes the sparse direct solver (SuperLU); above it AMG-preconditioned CG.
+#: Measured by benchmarks/scaling.py (docs/performance.md, solver choice): the two take equal time
+#: near 3.5e3 unknowns for P1 heat and 5e3 for P2 elasticity; at 2e4 SuperLU is 5-40x slower.
+#: Smoothed aggregation can stall on slender P2 models; such a solve falls back to SuperLU (below).
+DIRECT_LIMIT = 5_000
 #: Unknowns up to which an "auto" AMG solve that fails is retried with the direct solver.
 FALLBACK_LIMIT = 200_000
 METHODS = ("auto", "direct", "amg")
@@ -84,6 +83,7 @@ class Prepared:
         start = time.perf_counter()
         bnorm = float(np.linalg.norm(b)) or 1.0
         history: list[float] = []
+        stalled = False
         if self.method == "direct":
             x = self._lu.solve(b)
             iterations = 1
@@ -100,7 +100,7 @@ class Prepared:
                     x = self._ml.solve(b, tol=self.rtol, accel="cg", maxiter=self.maxiter, residuals=history,
                                        callback=self._watch(history, bnorm))
                 except _Stalled:
-                    x = self._iterate
+                    x, stalled = self._iterate, True
             iterations = max(len(history) - 1, 0)
         residual = float(np.linalg.norm(self.A @ x - b)) / bnorm
         seconds = time.perf_counter() - start + (0.0 if self.solves else self.setup_seconds)
@@ -108,11 +108,12 @@ class Prepared:
         record = SolveRecord(self.method, self.n, iterations, residual, seconds,
                              tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0)
         self.solves += 1
-        if not np.all(np.isfinite(x)) or residual > max(1e3 * self.rtol, 1e-6):
+        if stalled or not np.all(np.isfinite(x)) or residual > max(1e3 * self.rtol, 1e-6):
             trail = ", ".join(f"{h:.1e}" for h in record.history[-8:])
             hint = ("; try the direct solver (solver = \"direct\")" if self.method == "amg" else
                     "; the matrix may be singular: check the supports and the materials")
-            raise errors.SolverError(f"linear solve ({self.method}, {self.n} unknowns) did not converge: relative "
+            raise errors.SolverError(f"linear solve ({self.method}, {self.n} unknowns) did not converge"
+                                     f"{' (stalled)' if stalled else ''}: relative "
                                      f"residual {residual:.3e} after {iterations} iterations (last residuals "
                                      f"{trail}){hint}")
         log.info("solved %d unknowns with %s in %.2f s (%d iterations, residual %.1e)",
