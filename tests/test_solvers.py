@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import scipy.sparse as sp
 import pytest
 
 import meshes
@@ -10,7 +11,9 @@ from pipeline import errors
 from pipeline.stages import kernels, solvers
 
 
-def heat_matrix(n=18):
+def heat_matrix(n=23):
+    """P1 conduction + film matrix of a jittered cube with n^3 unknowns (23^3 = 12167: above every
+    direct-solver limit of "auto")."""
     m = meshes.tensor(*[np.linspace(0, 1, n)] * 3, jitter=0.15)
     space, geom = kernels.Space(m, 1), kernels.Geometry(m)
     A = kernels.conduction(space, geom, np.arange(m.nelements), 1.0, 0)
@@ -34,7 +37,7 @@ def test_a_preparation_serves_several_right_hand_sides(method, monkeypatch):
     import pyamg
 
     builds = []
-    for module, name in ((solvers.spla, "splu"), (pyamg, "smoothed_aggregation_solver")):
+    for module, name in ((solvers._Direct, "__init__"), (pyamg, "smoothed_aggregation_solver")):
         original = getattr(module, name)
         monkeypatch.setattr(module, name, lambda *a, _f=original, **k: builds.append(1) or _f(*a, **k))
     A = heat_matrix(12)
@@ -75,3 +78,17 @@ def test_a_model_too_large_is_refused_with_its_estimate():
     assert text.startswith("wf.toml: stages.stress:") and "2,000,000 unknowns" in text and "GiB" in text
     assert "memory_limit" in text and "coarser mesh or order = 1" in text
     assert solvers.check_memory(10_000, 1, 1, "auto", limit=2**30, where="x") < 2**30
+
+
+@pytest.mark.parametrize("backend", ["SuperLU", "PARDISO"])
+def test_each_direct_backend_solves_symmetric_and_unsymmetric_systems(backend, monkeypatch):
+    """PARDISO is optional (the ``direct`` extra); SuperLU is always there."""
+    if backend == "PARDISO":
+        pytest.importorskip("pypardiso")
+    monkeypatch.setattr(solvers, "direct_backend", lambda: backend)
+    A = heat_matrix(10)
+    skew = A + 0.1 * sp.triu(A, 1, format="csr")  # unsymmetric, like the tangent of a k(T) problem
+    b = np.random.default_rng(2).random(A.shape[0])
+    for M in (A, skew):
+        x, record = solvers.solve_spd(M, b, "direct")
+        assert record.backend == backend and np.linalg.norm(M @ x - b) <= 1e-11 * np.linalg.norm(b)

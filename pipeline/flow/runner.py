@@ -378,7 +378,8 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
             raise
         results[s.name], domains[s.name] = result, s.domain
         solver = getattr(result, "solver", None)
-        detail = (f"; {solver.method} solve of {solver.unknowns} unknowns, {solver.iterations} iterations, "
+        backend = f" ({solver.backend})" if getattr(solver, "backend", "") else ""
+        detail = (f"; {solver.method}{backend} solve of {solver.unknowns} unknowns, {solver.iterations} iterations, "
                   f"residual {solver.residual:.1e}") if solver and status == "computed" else ""
         newton = getattr(result, "meta", {}).get("newton", []) if status == "computed" else []
         if len(newton) > 1:  # a nonlinear solve: show every iteration

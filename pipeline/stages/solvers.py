@@ -22,11 +22,13 @@ from .. import errors
 
 log = logging.getLogger(__name__)
 
-#: Unknowns up to which "auto" takes the sparse direct solver (SuperLU); above it AMG-preconditioned CG.
-#: Measured by benchmarks/scaling.py (docs/performance.md, solver choice): the two take equal time
-#: near 3.5e3 unknowns for P1 heat and 5e3 for P2 elasticity; at 2e4 SuperLU is 5-40x slower.
-#: Smoothed aggregation can stall on slender P2 models; such a solve falls back to SuperLU (below).
-DIRECT_LIMIT = 5_000
+#: Unknowns up to which "auto" takes the sparse direct solver, by backend and by the number of
+#: components per point; above it AMG-preconditioned CG.  Measured by benchmarks/scaling.py
+#: (docs/performance.md, solver choice): SuperLU and AMG take equal time near 3.5e3 unknowns for P1
+#: heat and 5e3 for P2 elasticity; PARDISO (the optional ``direct`` extra, MKL) factorises P2
+#: elasticity faster than AMG converges up to several 1e4 unknowns.  Smoothed aggregation can stall on
+#: slender P2 models (boards, thin walls); such a solve falls back to the direct solver (below).
+DIRECT_LIMIT = {("SuperLU", 1): 5_000, ("SuperLU", 3): 5_000, ("PARDISO", 1): 10_000, ("PARDISO", 3): 50_000}
 #: Unknowns up to which an "auto" AMG solve that fails is retried with the direct solver.
 FALLBACK_LIMIT = 200_000
 METHODS = ("auto", "direct", "amg")
@@ -46,6 +48,7 @@ class SolveRecord:
     history: tuple[float, ...] = field(default=())
     setup_seconds: float = 0.0
     reused: bool = False
+    backend: str = ""
 
     def to_dict(self) -> dict:
         out = asdict(self)
@@ -53,11 +56,47 @@ class SolveRecord:
         return out
 
 
-def choose(n: int, method: str = "auto") -> str:
+def direct_backend() -> str:
+    """"PARDISO" when pypardiso is installed (the ``direct`` extra), else scipy's "SuperLU";
+    ``THERMOCHAIN_DIRECT=superlu`` in the environment keeps SuperLU."""
+    if os.environ.get("THERMOCHAIN_DIRECT", "").lower() == "superlu":
+        return "SuperLU"
+    try:
+        import pypardiso  # noqa: F401
+    except ImportError:
+        return "SuperLU"
+    return "PARDISO"
+
+
+def choose(n: int, method: str = "auto", components: int = 1) -> str:
     """The method for ``n`` unknowns: "direct" up to DIRECT_LIMIT, else "amg", unless one is asked for."""
     if method not in METHODS:
         raise errors.InputError(f"solver method {method!r} is not known; valid: {', '.join(METHODS)}")
-    return ("direct" if n <= DIRECT_LIMIT else "amg") if method == "auto" else method
+    if method != "auto":
+        return method
+    return "direct" if n <= DIRECT_LIMIT[(direct_backend(), 3 if components > 1 else 1)] else "amg"
+
+
+class _Direct:
+    """A sparse LU/Cholesky factorisation kept for reuse: PARDISO (symmetric positive definite mode
+    on the upper triangle, or general mode for an unsymmetric tangent) if installed, else SuperLU."""
+
+    def __init__(self, A: sp.csr_matrix):
+        self.backend = direct_backend()
+        if self.backend == "PARDISO":
+            import pypardiso
+
+            symmetric = abs(A - A.T).max() <= 1e-12 * abs(A).max()
+            self._solver = pypardiso.PyPardisoSolver(mtype=2 if symmetric else 11)
+            self._matrix = sp.triu(A, format="csr") if symmetric else A
+            self._solver.factorize(self._matrix)
+        else:
+            self._lu = spla.splu(A.tocsc())
+
+    def solve(self, b: np.ndarray) -> np.ndarray:
+        if self.backend == "PARDISO":
+            return np.asarray(self._solver.solve(self._matrix, b), dtype=float)
+        return self._lu.solve(b)
 
 
 class Prepared:
@@ -67,11 +106,14 @@ class Prepared:
                  rtol: float = 1e-10, maxiter: int = 500):
         self.A = A.tocsr()
         self.n = int(A.shape[0])
-        self.method = choose(self.n, method)
+        components = 1 if near_null is None else 3
+        self.method = choose(self.n, method, components)
         self.rtol, self.maxiter, self.solves = rtol, maxiter, 0
         start = time.perf_counter()
+        self.backend = "pyamg"
         if self.method == "direct":
-            self._lu = spla.splu(self.A.tocsc())
+            self._lu = _Direct(self.A)
+            self.backend = self._lu.backend
         else:
             import pyamg
 
@@ -87,7 +129,7 @@ class Prepared:
         if self.method == "direct":
             x = self._lu.solve(b)
             iterations = 1
-            for _ in range(REFINEMENT_STEPS):  # iterative refinement: SuperLU pivots for stability, not SPD
+            for _ in range(REFINEMENT_STEPS):  # iterative refinement: recovers digits lost to pivoting
                 r = b - self.A @ x
                 history.append(float(np.linalg.norm(r)))
                 if history[-1] <= self.rtol * bnorm:
@@ -106,7 +148,7 @@ class Prepared:
         seconds = time.perf_counter() - start + (0.0 if self.solves else self.setup_seconds)
         self.last_residual, self.spent = residual, seconds
         record = SolveRecord(self.method, self.n, iterations, residual, seconds,
-                             tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0)
+                             tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0, self.backend)
         self.solves += 1
         if stalled or not np.all(np.isfinite(x)) or residual > max(1e3 * self.rtol, 1e-6):
             trail = ", ".join(f"{h:.1e}" for h in record.history[-8:])
@@ -148,7 +190,7 @@ def solve_spd(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float =
         x, record = Prepared(A, "direct", rtol=rtol).solve(b)
         return x, SolveRecord(f"direct (after AMG stalled at {prepared.last_residual:.1e})", record.unknowns,
                               record.iterations, record.residual, record.seconds + prepared.spent,
-                              record.history, record.setup_seconds)
+                              record.history, record.setup_seconds, False, record.backend)
 
 
 class _Stalled(Exception):
@@ -205,7 +247,7 @@ def check_memory(unknowns: int, order: int, components: int, method: str, limit:
                  where: str) -> int:
     """Refuse, before assembly, a model whose estimate exceeds ``limit`` bytes (default: what is
     available); returns the estimate."""
-    chosen = choose(unknowns, method)
+    chosen = choose(unknowns, method, components)
     need = estimate_memory(unknowns, order, components, chosen)
     room = int(limit) if limit is not None else available_memory()
     if need > room:

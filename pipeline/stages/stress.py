@@ -137,16 +137,15 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for name, force in spec.force.items():
         facets = kernels.Facets(space, geom, domain.surfaces[name], degree)
         f_mech += facets.vector_load(np.asarray(force, float) / facets.area.sum())
+    springs = {name: kernels.Facets(space, geom, domain.surfaces[name], degree).vector_mass(s.stiffness)
+               for name, s in spec.supports.items() if s.kind == "spring"}
     K = stiffness.matrix()
-    springs = {}
-    for name, s in spec.supports.items():
-        if s.kind == "spring":
-            springs[name] = kernels.Facets(space, geom, domain.surfaces[name], degree).vector_mass(s.stiffness)
-            K = K + springs[name]
-
+    del stiffness
+    for ks in springs.values():
+        K = K + ks
     assembled = time.perf_counter() - start
-    u, record = _solve_constrained(K.tocsr(), f_thermal + f_mech, constraints, space, spec.solver)
-    residual = K @ u - f_thermal - f_mech  # nodal reactions at constrained points [N]
+    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec.solver)
+    del K
     reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
                  for name, pts in constraints.owner.items()}
     for name, ks in springs.items():
@@ -167,7 +166,9 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
 
 
 def _solve_constrained(K, f, constraints, space, method):
-    """Solve in the local frames of the constrained points, with rigid-body modes for AMG."""
+    """Solve in the local frames of the constrained points, with rigid-body modes for AMG; returns
+    u, the residual K u - f (the nodal reactions at constrained points [N]) and the solve record.
+    The residual comes from the local-frame matrix (T is orthogonal: K u - f = T (K_l u_l - f_l))."""
     T = constraints.transform
     Kl = (T.T @ K @ T).tocsr()
     fl = T.T @ f
@@ -177,7 +178,7 @@ def _solve_constrained(K, f, constraints, space, method):
     rhs = fl[free] - Kl[free][:, constraints.fixed] @ ul[constraints.fixed]
     modes = rigid_body_modes(space.doflocs)
     ul[free], record = solvers.solve_spd(Kl[free][:, free], rhs, method=method, near_null=(T.T @ modes)[free])
-    return T @ ul, record
+    return T @ ul, T @ (Kl @ ul - fl), record
 
 
 def rigid_body_modes(x: np.ndarray) -> np.ndarray:
