@@ -109,8 +109,8 @@ def main() -> None:
     stress_sides = [8, 12] if args.quick else [8, 17, 24, 35]  # 1e4 ... 1e6 unknowns
     text = [f"Machine: {machine()}.\n", scaling("heat", heat_sides), scaling("stress", stress_sides)]
     write_section("scaling" if not args.quick else "scaling-quick", "\n".join(text))
-    cross_heat = [12, 17, 22, 30, 47] if not args.quick else [12]
-    cross_stress = [6, 8, 10, 12, 15] if not args.quick else [6]
+    cross_heat = [12, 17, 22, 30] if not args.quick else [12]
+    cross_stress = [6, 8, 10, 12] if not args.quick else [6]
     write_section("solvers" if not args.quick else "solvers-quick",
                   crossing("heat", cross_heat) + "\n" + crossing("stress", cross_stress))
 

@@ -130,9 +130,12 @@ class Geometry:
         p, t = mesh.p, mesh.t
         origin = p[:, t[0]]
         self.origin = origin.T  # (nel, 3)
-        self.J = np.stack([(p[:, t[i]] - origin).T for i in (1, 2, 3)], axis=2)
-        self.det = np.abs(np.linalg.det(self.J))
-        self.inv = np.linalg.inv(self.J)
+        a, b, c = ((p[:, t[i]] - origin).T for i in (1, 2, 3))  # the columns of J, (nel, 3) each
+        self.J = np.stack([a, b, c], axis=2)
+        rows = np.stack([np.cross(b, c), np.cross(c, a), np.cross(a, b)], axis=1)  # adjugate rows
+        signed = np.einsum("ni,ni->n", a, rows[:, 0])
+        self.det = np.abs(signed)
+        self.inv = rows / signed[:, None, None]
 
     def points(self, ref: Reference, ids) -> np.ndarray:
         """(3, n_ids, nq) physical coordinates of the quadrature points."""
@@ -146,16 +149,19 @@ def chunks(ids: np.ndarray, entries_per_element: int):
 
 
 def gradients(geom: Geometry, ref: Reference, ids) -> np.ndarray:
-    """(n, nq, nb, 3) physical shape-function gradients: dphi_ref . J^-1."""
-    return np.einsum("ikq,ekd->eqid", ref.dphi, geom.inv[ids], optimize=True)
+    """(n, nq, nb, 3) physical shape-function gradients: dphi_ref . J^-1 (batched matrix products)."""
+    return np.matmul(np.transpose(ref.dphi, (2, 0, 1))[None], geom.inv[ids][:, None])
 
 
 class Assembler:
-    """Scatters element matrices into one CSR matrix chunk by chunk (duplicates summed)."""
+    """Scatters element matrices into one CSR matrix chunk by chunk (duplicates summed).
+
+    Chunk matrices are summed like a binary counter (a partial sum is merged only with one of the
+    same level), so the merge work grows as nnz log(chunks), not nnz * chunks."""
 
     def __init__(self, n: int):
         self.n = n
-        self.parts: list[sp.csr_matrix] = []
+        self.parts: list[tuple[int, sp.csr_matrix]] = []  # (level, partial sum)
 
     def add(self, dofs: np.ndarray, blocks: np.ndarray) -> None:
         """dofs (n_el, m) global indices; blocks (n_el, m, m) element matrices."""
@@ -165,21 +171,20 @@ class Assembler:
         cols = np.tile(dofs.astype(dtype, copy=False), (1, m)).ravel()
         part = sp.coo_matrix((blocks.ravel(), (rows, cols)), shape=(self.n, self.n)).tocsr()
         part.sum_duplicates()
-        self.parts.append(part)
-        if len(self.parts) > 4:
-            self._merge()
-
-    def _merge(self):
-        total = self.parts[0]
-        for p in self.parts[1:]:
-            total = total + p
-        self.parts = [total]
+        level = 0
+        while self.parts and self.parts[-1][0] == level:
+            part = self.parts.pop()[1] + part
+            level += 1
+        self.parts.append((level, part))
 
     def matrix(self) -> sp.csr_matrix:
         if not self.parts:
             return sp.csr_matrix((self.n, self.n))
-        self._merge()
-        return self.parts[0].tocsr()
+        total = self.parts.pop()[1]
+        while self.parts:
+            total = self.parts.pop()[1] + total
+        self.parts = [(64, total)]
+        return total.tocsr()
 
 
 def vector_dofs(dofs: np.ndarray) -> np.ndarray:
@@ -207,13 +212,19 @@ def conduction(space: Space, geom: Geometry, ids, k, degree: int, out: Assembler
     ref = reference(space.order, degree)
     out = out or Assembler(space.N)
     ids = np.asarray(ids)
+    scalar = np.ndim(k) == 0
     for s in chunks(ids, space.nb**2 * 4):
         e = ids[s]
         G = gradients(geom, ref, e)  # (n, q, i, d)
-        kq = _tensor_at(k, ids, s, len(e), len(ref.weights))  # (n, q, 3, 3)
         w = geom.det[e][:, None] * ref.weights[None, :]
-        KG = np.einsum("nqab,nqjb->nqja", kq, G, optimize=True)
-        blocks = np.einsum("nq,nqia,nqja->nij", w, G, KG, optimize=True)
+        if scalar:
+            KG = float(k) * G
+        else:
+            kq = _tensor_at(k, ids, s, len(e), len(ref.weights))  # (n, q, 3, 3)
+            KG = np.matmul(G, np.swapaxes(kq, 2, 3))
+        n, q, nb, _ = G.shape
+        Gw = (G * w[:, :, None, None]).transpose(0, 2, 1, 3).reshape(n, nb, q * 3)
+        blocks = np.matmul(Gw, KG.transpose(0, 1, 3, 2).reshape(n, q * 3, nb))
         out.add(space.element_dofs[:, e].T, blocks)
     return out
 
@@ -237,7 +248,8 @@ def advection(space: Space, geom: Geometry, ids, b, degree: int, out: Assembler 
         G = gradients(geom, ref, e)
         bq = at_points(b[s], len(e), len(ref.weights), (3,))
         w = geom.det[e][:, None] * ref.weights[None, :]
-        blocks = np.einsum("nq,nqid,nqd,jq->nij", w, G, bq, ref.phi, optimize=True)
+        gb = np.matmul(G, bq[..., None])[..., 0] * w[:, :, None]  # (n, q, i): (b . grad v_i) dV
+        blocks = np.matmul(gb.transpose(0, 2, 1), ref.phi.T)
         out.add(space.element_dofs[:, e].T, blocks)
     return out
 
@@ -251,7 +263,7 @@ def mass(space: Space, geom: Geometry, ids, c, degree: int, out: Assembler | Non
         e = ids[s]
         cq = at_points(_rows(c, ids, s), len(e), len(ref.weights))
         w = geom.det[e][:, None] * ref.weights[None, :] * cq
-        blocks = np.einsum("nq,iq,jq->nij", w, ref.phi, ref.phi, optimize=True)
+        blocks = np.matmul(ref.phi[None] * w[:, None, :], ref.phi.T)
         out.add(space.element_dofs[:, e].T, blocks)
     return out
 
@@ -281,7 +293,7 @@ def flux_load(space: Space, geom: Geometry, ids, flux, ref: Reference) -> np.nda
         e = ids[s]
         G = gradients(geom, ref, e)
         w = geom.det[e][:, None] * ref.weights
-        local = np.einsum("nq,nqid,ndq->ni", w, G, flux[s], optimize=True)
+        local = np.matmul(G * w[:, :, None, None], np.moveaxis(flux[s], 1, 2)[..., None])[..., 0].sum(axis=1)
         out += np.bincount(space.element_dofs[:, e].T.ravel(), local.ravel(), minlength=space.N)
     return out
 
@@ -295,7 +307,8 @@ def interpolate(space: Space, geom: Geometry, ids, u: np.ndarray, ref: Reference
         return values
     g = np.empty((len(ids), 3, len(ref.weights)))
     for s in chunks(ids, space.nb * len(ref.weights) * 6):
-        g[s] = np.einsum("nqid,in->ndq", gradients(geom, ref, ids[s]), local[:, s], optimize=True)
+        G = gradients(geom, ref, ids[s])  # (n, q, i, d)
+        g[s] = np.matmul(np.swapaxes(G, 2, 3), local[:, s].T[:, None, :, None])[..., 0].transpose(0, 2, 1)
     return values, g
 
 
@@ -324,7 +337,7 @@ def stiffness(space: Space, geom: Geometry, ids, c: np.ndarray, degree: int,
         e = ids[s]
         B = strain_operator(gradients(geom, ref, e))  # (n, q, 6, m)
         w = geom.det[e][:, None] * ref.weights
-        CB = np.einsum("st,nqtm->nqsm", c, B, optimize=True) * w[:, :, None, None]
+        CB = np.matmul(c, B) * w[:, :, None, None]
         n, q, _, m = B.shape
         blocks = np.matmul(B.reshape(n, q * 6, m).transpose(0, 2, 1), CB.reshape(n, q * 6, m))
         out.add(vector_dofs(space.element_dofs[:, e].T), blocks)
@@ -339,7 +352,8 @@ def strain_load(space: Space, geom: Geometry, ids, stress, ref: Reference) -> np
         e = ids[s]
         B = strain_operator(gradients(geom, ref, e))
         w = geom.det[e][:, None] * ref.weights
-        local = np.einsum("nq,nqsm,nsq->nm", w, B, stress[s], optimize=True)
+        sw = np.moveaxis(stress[s], 1, 2) * w[:, :, None]  # (n, q, 6)
+        local = np.matmul(sw[:, :, None, :], B)[:, :, 0, :].sum(axis=1)
         out += np.bincount(vector_dofs(space.element_dofs[:, e].T).ravel(), local.ravel(), minlength=3 * space.N)
     return out
 
@@ -360,7 +374,7 @@ def strains(space: Space, geom: Geometry, ids, u: np.ndarray, ref: Reference) ->
         e = ids[s]
         B = strain_operator(gradients(geom, ref, e))
         local = u[vector_dofs(space.element_dofs[:, e].T)]  # (n, m)
-        out[s] = np.einsum("nqsm,nm->nsq", B, local, optimize=True)
+        out[s] = np.matmul(B, local[:, None, :, None])[..., 0].transpose(0, 2, 1)
     return out
 
 
@@ -416,7 +430,7 @@ class Facets:
         """Matrix of int c u v dA: c a number or (n, nq)."""
         out = out or Assembler(self.space.N)
         cq = self.weights * at_points(c, len(self.facets), self.nq)
-        out.add(self.dofs, np.einsum("nq,niq,njq->nij", cq, self.phi, self.phi, optimize=True))
+        out.add(self.dofs, np.matmul(self.phi * cq[:, None, :], self.phi.transpose(0, 2, 1)))
         return out
 
     def vector_load(self, t) -> np.ndarray:

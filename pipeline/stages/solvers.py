@@ -61,11 +61,9 @@ def direct_backend() -> str:
     ``THERMOCHAIN_DIRECT=superlu`` in the environment keeps SuperLU."""
     if os.environ.get("THERMOCHAIN_DIRECT", "").lower() == "superlu":
         return "SuperLU"
-    try:
-        import pypardiso  # noqa: F401
-    except ImportError:
-        return "SuperLU"
-    return "PARDISO"
+    import importlib.util
+
+    return "PARDISO" if importlib.util.find_spec("pypardiso") is not None else "SuperLU"
 
 
 def choose(n: int, method: str = "auto", components: int = 1) -> str:
