@@ -144,3 +144,18 @@ def test_domain_source_hash_is_the_file_content():
     a = mesh_mod.load(DATA / "boxes_41.msh", unit="mm")
     b = mesh_mod.load(DATA / "boxes_22.msh", unit="mm")
     assert len(a.source_hash) == 64 and a.source_hash != b.source_hash
+
+
+def test_facet_keys_of_meshes_too_large_for_integer_keys_match_the_same_facets():
+    """Above about 1.6e6 nodes n^3 overflows 62 bits; the record keys must match exactly the same facets."""
+    from pipeline.model.mesh import _facet_keys
+
+    rng = np.random.default_rng(0)
+    tri = rng.integers(0, 50, size=(200, 3))
+    shuffled = rng.permuted(tri, axis=1)
+    for n in (50, 2**21):  # the integer path and the record path
+        a, b = _facet_keys(tri, n), _facet_keys(shuffled, n)
+        assert np.array_equal(a, b)
+        order = np.argsort(a)
+        pos = np.searchsorted(a, b[::-1], sorter=order)
+        assert np.array_equal(a[order[pos]], b[::-1])

@@ -86,6 +86,7 @@ def test_each_direct_backend_solves_symmetric_and_unsymmetric_systems(backend, m
     if backend == "PARDISO":
         pytest.importorskip("pypardiso")
     monkeypatch.setattr(solvers, "direct_backend", lambda: backend)
+    monkeypatch.setattr(solvers, "SMALL", 0)  # PARDISO is kept for larger models; exercise it here
     A = heat_matrix(10)
     skew = A + 0.1 * sp.triu(A, 1, format="csr")  # unsymmetric, like the tangent of a k(T) problem
     b = np.random.default_rng(2).random(A.shape[0])

@@ -206,7 +206,7 @@ def _plan_stage(name, stage, where, workflow, main, domain_of, library, by_name,
         problems += [errors.unknown_name("surface", a, main.surfaces, f"{where}.adiabatic")
                      for a in stage.adiabatic if a not in main.surfaces]
         _checked(heat.check, main, spec, where, problems, mats)
-        _before_solving(heat._check_heat_can_leave, main, spec, where)
+        _before_solving(heat.check_steady_state, main, spec, where)
         inputs = base | {"version": heat.STAGE_VERSION, "options": stage.model_dump(exclude={"materials", "memory_limit"}),
                          "materials": {p: m.reads(*READS["heat"]) for p, m in sorted(mats.items())},
                          "mesh": [main.source_hash, main.unit], "probes": probes}
@@ -369,13 +369,15 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
                     p.store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
                                                             "seconds": time.perf_counter() - t0})
         except errors.ThermochainError as exc:
-            record["stages"][s.name] = entry | {"status": "failed", "reason": str(exc)}
+            # every line names the file and the stage (a solver or the store does not know them)
+            located = type(exc)([line if line.startswith(str(p.path)) else f"{s.where}: {line}" for line in exc.problems])
+            record["stages"][s.name] = entry | {"status": "failed", "reason": str(located)}
             record["status"] = "failed"
             try:
                 summary.write_json(p.folder / "summary.json", record)
             except OSError as write_error:  # e.g. the same full disk: the stage's own error is the one to report
                 log.warning("%s: summary.json not written (%s)", p.folder, write_error.strerror or write_error)
-            raise
+            raise located from None
         results[s.name], domains[s.name] = result, s.domain
         solver = getattr(result, "solver", None)
         backend = f" ({solver.backend})" if getattr(solver, "backend", "") else ""

@@ -8,6 +8,7 @@ them.  Every problem is reported at once, with the file and the key path.  See d
 from __future__ import annotations
 
 import copy
+import math
 import re
 import tomllib
 import typing
@@ -22,11 +23,29 @@ from ..model.units import to_si
 
 
 def quantity(unit: str, **bounds):
-    """A float in ``unit`` (SI) that may be written as a string with any unit of the same dimension."""
-    return Annotated[float, BeforeValidator(lambda v: to_si(v, unit)), Field(description=f"[{unit}]", **bounds)]
+    """A finite float in ``unit`` (SI) that may be written as a string with any unit of the same dimension."""
+    return Annotated[float, BeforeValidator(lambda v: _finite_si(v, unit)), Field(description=f"[{unit}]", **bounds)]
 
 
-Temperature = quantity("K", ge=0)
+def _finite_si(value, unit: str) -> float:
+    try:
+        out = to_si(value, unit)
+    except OverflowError:
+        raise ValueError(f"the number is too large (give a value in {unit})") from None
+    if not math.isfinite(out):
+        raise ValueError(f"must be a finite number in {unit}, got {value!r}")
+    return out
+
+
+def _temperature(value) -> float:
+    kelvin = _finite_si(value, "K")
+    if kelvin < 0:
+        raise ValueError(f"a temperature must be greater than or equal to 0 K (absolute zero, -273.15 degC); "
+                         f"got {value!r} = {kelvin:g} K")
+    return kelvin
+
+
+Temperature = Annotated[float, BeforeValidator(_temperature), Field(description="[K]", ge=0)]
 Length = quantity("m")
 PositiveLength = quantity("m", gt=0)
 Power = quantity("W")
@@ -54,7 +73,7 @@ Emissivity = Annotated[float | str, BeforeValidator(_emissivity)]
 
 
 class Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 class MeshSection(Strict):

@@ -157,7 +157,14 @@ def from_record(name: str, record: dict, where: str) -> Material:
         if not vector and len(seq) != 1:
             problems.append(f"{where}: '{key}' must be a single number [{UNITS[key]}]")
             continue
-        seq = [float(v) for v in seq]
+        try:
+            seq = [float(v) for v in seq]
+        except OverflowError:
+            problems.append(f"{where}: '{key}' is too large a number [{UNITS[key]}]")
+            continue
+        if not all(np.isfinite(seq)):
+            problems.append(f"{where}: '{key}' must be a finite number [{UNITS[key]}], got {raw!r}")
+            continue
         problems += _range_problems(where, key, seq)
         values[key] = tuple(seq) if vector else seq[0]
     values |= _curves(record, where, problems)
@@ -181,8 +188,11 @@ def _curves(record: dict, where: str, problems: list[str]) -> dict:
     out = {}
     table = record.get("conductivity_table")
     if table is not None:
-        rows = np.asarray(table, dtype=float) if isinstance(table, list) else np.zeros((0, 0))
-        if rows.ndim != 2 or rows.shape[1] not in (2, 4) or len(rows) < 2:
+        try:
+            rows = np.asarray(table, dtype=float) if isinstance(table, list) else np.zeros((0, 0))
+        except (TypeError, ValueError, OverflowError):  # text, dates, tables or ragged rows
+            rows = np.zeros((0, 0))
+        if rows.ndim != 2 or not np.all(np.isfinite(rows)) or rows.shape[1] not in (2, 4) or len(rows) < 2:
             problems.append(f"{where}: conductivity_table must be rows [T, k] or [T, kx, ky, kz] (K, W/(m*K)), "
                             "at least two")
         elif np.any(np.diff(rows[:, 0]) <= 0) or np.any(rows[:, 1:] <= 0) or rows[0, 0] < 0:
@@ -191,13 +201,23 @@ def _curves(record: dict, where: str, problems: list[str]) -> dict:
             out["conductivity_table"] = tuple(tuple(float(v) for v in r) for r in rows)
     poly = record.get("conductivity_polynomial")
     if poly is not None:
-        if not isinstance(poly, list) or not poly or not all(isinstance(c, (int, float)) for c in poly):
+        if not isinstance(poly, list) or not poly or not all(_finite_number(c) for c in poly):
             problems.append(f"{where}: conductivity_polynomial must be coefficients [c0, c1, ...] of k(T), T in K")
         else:
             out["conductivity_polynomial"] = tuple(float(c) for c in poly)
     if len(out) == 2:
         problems.append(f"{where}: give conductivity_table or conductivity_polynomial, not both")
     return out
+
+
+def _finite_number(value) -> bool:
+    """A finite real number that fits a float (a TOML integer may not)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    try:
+        return bool(np.isfinite(float(value)))
+    except OverflowError:
+        return False
 
 
 def _range_problems(where: str, key: str, values: list[float]) -> list[str]:

@@ -340,11 +340,12 @@ def _parts(tags: np.ndarray, names: dict[int, str], where: str, notices: list[st
 
 
 def _facet_keys(triangles: np.ndarray, n: int) -> np.ndarray:
-    """One integer per facet, independent of node order."""
+    """One sortable key per facet, independent of node order: an integer while n^3 fits in 62 bits,
+    else a record of the three sorted node ids (compared field by field)."""
     s = np.sort(triangles, axis=1).astype(np.int64)
-    if n**3 >= 2**62:
-        raise errors.MeshError(f"mesh with {n} nodes is too large for facet matching")
-    return (s[:, 0] * n + s[:, 1]) * n + s[:, 2]
+    if n**3 < 2**62:
+        return (s[:, 0] * n + s[:, 1]) * n + s[:, 2]
+    return np.ascontiguousarray(s).view([("a", "<i8"), ("b", "<i8"), ("c", "<i8")]).ravel()
 
 
 def _surfaces(mesh, tri, tri_tag, names, part_names, where, notices) -> dict[str, np.ndarray]:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+import tokenize
 
 from .. import errors
 
@@ -56,10 +57,11 @@ def to_si(value, unit: str):
 
     global _REGISTRY
     if _REGISTRY is None:
-        _REGISTRY = pint.UnitRegistry()
+        _REGISTRY = pint.UnitRegistry(cache_folder=":auto:")  # parsed definitions cached by pint
     try:
         return float(_REGISTRY.Quantity(magnitude, text).to(unit).magnitude)
     except pint.errors.DimensionalityError:
         raise ValueError(f"'{text}' is not a unit of {unit} (wrong dimension)") from None
-    except (pint.errors.UndefinedUnitError, AttributeError, TypeError, ValueError, AssertionError):
+    except (pint.errors.UndefinedUnitError, AttributeError, TypeError, ValueError, AssertionError,
+            ZeroDivisionError, tokenize.TokenError):  # pint parses the text with Python's tokenizer
         raise ValueError(f"'{text}' is not a known unit") from None

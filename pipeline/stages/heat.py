@@ -161,7 +161,7 @@ def _value_problems(spec: HeatSpec, where: str) -> list[str]:
 def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
     """Solve steady conduction on ``domain``; see the module docstring for the equations."""
     check(domain, spec, where)
-    _check_heat_can_leave(domain, spec, where)
+    check_steady_state(domain, spec, where)
     start = time.perf_counter()
     problem = _Problem(domain, spec)
     space, geom, ref = problem.space, problem.geom, problem.ref
@@ -338,7 +338,8 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         J = problem.tangent(T)
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
-        delta, record = solvers.solve_spd(J[free][:, free], -r[free], method=spec.solver)
+        A = J if len(free) == len(T) else J[free][:, free]
+        delta, record = solvers.solve_spd(A, -r[free], method=spec.solver)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()
@@ -362,7 +363,7 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
                              "conductivity tables, or raise max_iterations")
 
 
-def _check_heat_can_leave(domain, spec: HeatSpec, where: str) -> None:
+def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
     count, label = domain.bodies
     sinks = list(spec.convection) + list(spec.fixed_temperature) + list(spec.radiation)
@@ -393,7 +394,9 @@ def _part_statistics(domain, problem: _Problem, T: np.ndarray) -> dict[str, dict
     out = {}
     for name in sorted(domain.parts):
         ids = domain.parts[name]
-        values = T[np.unique(space.element_dofs[:, ids])]
+        used = np.zeros(space.N, dtype=bool)
+        used[space.element_dofs[:, ids].ravel()] = True
+        values = T[used]
         weights = geom.det[ids][:, None] * ref.weights
         mean = float(np.sum(weights * kernels.interpolate(space, geom, ids, T, ref)) / weights.sum())
         out[name] = {"min": float(values.min()), "max": float(values.max()), "mean": mean}

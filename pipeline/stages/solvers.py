@@ -12,6 +12,7 @@ from __future__ import annotations
 import logging
 import os
 import time
+import warnings
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
@@ -75,17 +76,25 @@ def choose(n: int, method: str = "auto", components: int = 1) -> str:
     return "direct" if n <= DIRECT_LIMIT[(direct_backend(), 3 if components > 1 else 1)] else "amg"
 
 
+#: Below this size SuperLU is used even where PARDISO is installed: it is as fast there, and loading
+#: MKL costs about half a second (measured).
+SMALL = 5_000
+
+
 class _Direct:
     """A sparse LU/Cholesky factorisation kept for reuse: PARDISO (symmetric positive definite mode
     on the upper triangle, or general mode for an unsymmetric tangent) if installed, else SuperLU."""
 
     def __init__(self, A: sp.csr_matrix):
-        self.backend = direct_backend()
+        self.backend = direct_backend() if A.shape[0] > SMALL else "SuperLU"
         if self.backend == "PARDISO":
             import pypardiso
 
             symmetric = abs(A - A.T).max() <= 1e-12 * abs(A).max()
             self._solver = pypardiso.PyPardisoSolver(mtype=2 if symmetric else 11)
+            # pypardiso searches the installation for MKL on every solver it makes unless told where
+            # it is (its documented PYPARDISO_MKL_RT variable): tell it once
+            os.environ.setdefault("PYPARDISO_MKL_RT", self._solver.libmkl._name)
             self._matrix = sp.triu(A, format="csr") if symmetric else A
             self._solver.factorize(self._matrix)
         else:
@@ -135,12 +144,15 @@ class Prepared:
                 x = x + self._lu.solve(r)
                 iterations += 1
         else:
-            with _one_thread():
+            with _one_thread(), warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
                 try:
                     x = self._ml.solve(b, tol=self.rtol, accel="cg", maxiter=self.maxiter, residuals=history,
                                        callback=self._watch(history, bnorm))
                 except _Stalled:
                     x, stalled = self._iterate, True
+            if any("ndefinite" in str(w.message) for w in caught):  # pyamg's CG gave up
+                stalled = True
             iterations = max(len(history) - 1, 0)
         residual = float(np.linalg.norm(self.A @ x - b)) / bnorm
         seconds = time.perf_counter() - start + (0.0 if self.solves else self.setup_seconds)

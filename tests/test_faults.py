@@ -1,0 +1,332 @@
+"""Faults: runs killed while writing, damaged entries, failed writes, concurrent runs on one store.
+
+The model is the small invented two-part box of test_bad_input (heat -> map -> stress).  Results are
+compared bit for bit: the same inputs go through the same deterministic code (sparse direct solves),
+so a reused or recomputed entry must equal the clean one exactly.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import multiprocessing
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from pipeline import cli
+from pipeline.flow import runner
+from pipeline.flow import store as store_mod
+from pipeline.model import units
+from test_bad_input import BASE, tree, write_box
+
+STAGES = ("heat", "strain", "stress")
+KILLS = 20
+
+units.to_si("1 K", "K")  # build pint's unit registry once: the forked children below inherit it
+
+
+@pytest.fixture
+def model(tmp_path):
+    write_box(tmp_path / "box.msh")
+    (tmp_path / "base.toml").write_text(BASE)
+    return tmp_path / "base.toml"
+
+
+@pytest.fixture(scope="module")
+def clean_run(tmp_path_factory):
+    """A store holding a clean run of the base workflow, and that run's summary (copied by each test)."""
+    folder = tmp_path_factory.mktemp("clean")
+    write_box(folder / "box.msh")
+    (folder / "base.toml").write_text(BASE)
+    record = runner.run(folder / "base.toml", store=folder / "store", out=folder / "out")
+    return folder / "store", record
+
+
+@pytest.fixture
+def filled(model, clean_run, tmp_path):
+    """This test's own copy of the clean store, beside its own model: (store, clean summary)."""
+    shutil.copytree(clean_run[0], tmp_path / "store")
+    return tmp_path / "store", clean_run[1]
+
+
+def entries(store: Path) -> dict[tuple[str, str], dict[str, np.ndarray]]:
+    """Every visible entry of a store, verified, as its arrays; a damaged or partial entry fails here."""
+    out = {}
+    s = store_mod.Store(store)
+    for kind in sorted(p for p in store.iterdir() if p.is_dir()) if store.is_dir() else []:
+        for place in sorted(kind.iterdir()):
+            if place.name.startswith("."):
+                continue  # lock files and interrupted writes: hidden, never read as entries
+            got = s.get(kind.name, place.name)
+            assert isinstance(got, tuple), f"{place}: {got}"
+            out[(kind.name, place.name)] = got[0]
+    assert len(out) == len(s.entries())
+    return out
+
+
+def figures(record: dict) -> dict:
+    """A summary without what legitimately differs between runs (timings, statuses and reasons)."""
+    out = {}
+    for name, stage in record["stages"].items():
+        stage = {k: v for k, v in stage.items() if k not in ("status", "reason", "seconds")}
+        stage.get("solver", {}).pop("seconds", None)
+        stage.get("solver", {}).pop("setup_seconds", None)
+        out[name] = stage
+    return json.loads(json.dumps(out, sort_keys=True))
+
+
+def assert_same_arrays(a: dict, b: dict) -> None:
+    assert a.keys() == b.keys()
+    for name in a:
+        np.testing.assert_array_equal(a[name], b[name], err_msg=name)
+
+
+# ------------------------------------------------------------------------------------- child processes
+
+def _context():
+    """Processes forked from this one, which has imported the package and built pint's registry: each
+    is a separate process that opens its own files and locks, without the seconds a fresh interpreter
+    spends importing (the final run of the kill test goes through a fresh ``python -m pipeline``)."""
+    return multiprocessing.get_context("fork")
+
+
+def _child(args: list[str], conn=None, barrier=None) -> None:
+    """In a child process: the real command.  With ``conn``, each store write is announced to the parent,
+    which answers "go" and may then kill this process at a random moment of the write.  With ``barrier``,
+    the children start together."""
+    if conn is not None:
+        original = store_mod.Store.put
+
+        def announced(self, kind, *a, **kw):
+            conn.send(kind)
+            conn.recv()
+            start = time.perf_counter()
+            place = original(self, kind, *a, **kw)
+            conn.send(time.perf_counter() - start)
+            return place
+
+        store_mod.Store.put = announced
+    if barrier is not None:
+        barrier.wait()
+    os._exit(cli.main(args))
+
+
+def _receive(conn, proc, timeout: float = 60.0):
+    """The child's next message; a child that died or hangs fails the test instead of blocking it."""
+    deadline = time.monotonic() + timeout
+    while not conn.poll(0.05):
+        assert proc.is_alive() and time.monotonic() < deadline, f"child ended or hung (exit {proc.exitcode})"
+    return conn.recv()
+
+
+# ---------------------------------------------------------------------------------------------- SIGKILL
+
+
+def test_runs_killed_while_writing_never_leave_a_partial_entry(model, tmp_path):
+    ctx = _context()
+    rng = np.random.default_rng(7)
+    store = tmp_path / "store"
+
+    def start(sets, target_store):
+        parent, child = ctx.Pipe()
+        args = ["-q", "run", str(model), "--store", str(target_store), "--out", str(tmp_path / "out")]
+        args += [f"--set={x}" for x in sets] + [f"--rerun={name}" for name in STAGES]  # every stage writes
+        proc = ctx.Process(target=_child, args=(args, child))
+        proc.start()
+        return proc, parent
+
+    # first timing: a clean run gives the reference results and how long each write takes
+    proc, conn = start([], tmp_path / "clean")
+    durations = []
+    for _ in STAGES:
+        _receive(conn, proc)
+        conn.send("go")
+        durations.append(_receive(conn, proc))
+    proc.join(60)
+    assert proc.exitcode == 0
+    clean = entries(tmp_path / "clean")
+    window = 1.25 * float(np.median(durations))  # a little past a typical write, so its last steps are hit too
+
+    interrupted, leftovers, kills, attempts = 0, set(), 0, 0
+    while kills < KILLS:
+        attempts += 1
+        assert attempts <= 2 * KILLS, "most runs ended before their kill; the write window is mismeasured"
+        # even runs replace the base entries (--rerun), odd runs write new entries of a variant
+        sets = [] if attempts % 2 else [f"stages.heat.power.upper={0.40 + 0.01 * attempts}"]
+        target = int(rng.integers(len(STAGES)))
+        proc, conn = start(sets, store)
+        for n, _ in enumerate(STAGES):
+            kind = _receive(conn, proc)
+            conn.send("go")
+            if n == target:
+                time.sleep(rng.uniform(0.0, window))
+                os.kill(proc.pid, signal.SIGKILL)
+                break
+            _receive(conn, proc)
+        proc.join(60)
+        assert proc.exitcode in (-signal.SIGKILL, 0)  # 0: the run ended before the kill (a loaded machine)
+        kills += proc.exitcode == -signal.SIGKILL
+        hidden = {p for p in (store / kind).iterdir() if p.is_dir() and p.name.startswith(".")}
+        interrupted += bool(hidden - leftovers)  # this kill left a temporary folder: it landed inside the write
+        leftovers |= hidden
+        entries(store)  # every visible entry is whole and verifies
+    print(f"{interrupted} of {KILLS} kills landed inside a write; {attempts} runs; window {window * 1e3:.1f} ms")
+    assert interrupted >= 1, "no kill landed inside a write; the test did not test what it claims"
+
+    # the next run, through the installed command, completes with the clean run's results
+    out = tmp_path / "final"
+    r = subprocess.run([sys.executable, "-m", "pipeline", "-q", "run", str(model), "--store", str(store),
+                        "--out", str(out)], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    final = entries(store)
+    record = json.loads((out / "summary.json").read_text())
+    for name in STAGES:
+        key = (record["stages"][name]["kind"], record["stages"][name]["key"])
+        assert_same_arrays(final[key], clean[key])
+
+
+# -------------------------------------------------------------------------------------- damaged entries
+
+def _flip(path: Path) -> None:
+    data = bytearray(path.read_bytes())
+    data[len(data) // 2] ^= 0x01
+    path.write_bytes(bytes(data))
+
+
+DAMAGE = {
+    "arrays_altered": ("arrays.npz", _flip, "arrays.npz fails its checksum"),
+    "arrays_truncated": ("arrays.npz", lambda p: p.write_bytes(p.read_bytes()[: p.stat().st_size // 3]),
+                         "arrays.npz fails its checksum"),
+    "meta_altered": ("meta.json", lambda p: p.write_text(p.read_text().replace("1", "2", 1)),
+                     "meta.json fails its checksum"),
+    "arrays_missing": ("arrays.npz", lambda p: p.unlink(), "could not be read"),
+    "manifest_truncated": ("manifest.json", lambda p: p.write_text(p.read_text()[:40]), "could not be read"),
+}
+
+
+@pytest.mark.parametrize("damage", sorted(DAMAGE))
+@pytest.mark.parametrize("stage", ["heat", "stress"])
+def test_a_damaged_entry_is_detected_reported_and_recomputed(model, filled, tmp_path, capsys, damage, stage):
+    store, first = filled
+    before = entries(store)
+    kind, key = first["stages"][stage]["kind"], first["stages"][stage]["key"]
+    name, spoil, reason = DAMAGE[damage]
+    spoil(store / kind / key / name)
+    capsys.readouterr()
+    assert cli.main(["run", str(model), "--store", str(store), "--out", str(tmp_path / "out")]) == 0
+    printed = capsys.readouterr().out
+    assert f"stage {stage} ({kind}): computed - {stage} computed: the stored entry" in printed and reason in printed
+    record = json.loads((tmp_path / "out" / "summary.json").read_text())
+    statuses = {n: s["status"] for n, s in record["stages"].items()}
+    assert statuses == {n: "computed" if n == stage else "reused" for n in STAGES}
+    after = entries(store)  # whole again
+    assert after.keys() == before.keys()
+    for k in before:
+        assert_same_arrays(after[k], before[k])
+    assert figures(record) == figures(first)
+
+
+# ---------------------------------------------------------------------------------------- failed writes
+
+def _failing(errno_code: int):
+    def fail(*args, **kwargs):
+        raise OSError(errno_code, os.strerror(errno_code))
+    return fail
+
+
+def _inside(store: Path, original, errno_code: int):
+    """``original`` but failing for paths inside the store (a read-only store, not a read-only machine)."""
+    def wrapped(*args, **kwargs):
+        paths = [str(a) for a in args] + [str(v) for v in kwargs.values()]
+        if any(p.startswith(str(store)) for p in paths):
+            raise OSError(errno_code, os.strerror(errno_code))
+        return original(*args, **kwargs)
+    return wrapped
+
+
+FAILURES = {  # what breaks -> (how to patch it, the words the user sees)
+    "disk_full_while_writing": (lambda mp, store: mp.setattr(store_mod, "_write_synced", _failing(errno.ENOSPC)),
+                                "No space left on device"),
+    "read_only_folder": (lambda mp, store: mp.setattr(tempfile, "mkdtemp",
+                                                      _inside(store, tempfile.mkdtemp, errno.EROFS)),
+                         "Read-only file system"),
+    "rename_refused": (lambda mp, store: mp.setattr(os, "rename", _inside(store, os.rename, errno.EROFS)),
+                       "Read-only file system"),
+    "sync_fails_everywhere": (lambda mp, store: mp.setattr(os, "fsync", _failing(errno.EIO)), "Input/output error"),
+}
+
+
+@pytest.mark.parametrize("failure", sorted(FAILURES))
+def test_a_failed_write_is_a_clear_error_and_earlier_entries_stay(model, filled, tmp_path, capsys, monkeypatch,
+                                                                failure):
+    store, _ = filled
+    before = {k: v for k, v in tree(store).items() if not Path(k).parts[1].startswith(".")}
+    patch, words = FAILURES[failure]
+    variant = ["--set", 'stages.stress.materials={ lower = "copper_c11000" }']  # a new stress entry only
+    with monkeypatch.context() as mp:
+        patch(mp, store)
+        capsys.readouterr()
+        status = cli.main(["run", str(model), "--store", str(store), "--out", str(tmp_path / "v")] + variant)
+    err = capsys.readouterr().err
+    assert status == 1, err
+    assert "Traceback" not in err
+    assert f"store {store}: cannot write the stress entry ({words}); earlier entries are intact" in err
+    after = tree(store)
+    assert {k: v for k, v in after.items() if not Path(k).parts[1].startswith(".")} == before
+    assert not [p for p in store.glob("*/.*") if p.is_dir()]  # no half-written folder left behind
+    # nothing was lost silently: the same run without the fault stores the entry
+    assert cli.main(["-q", "run", str(model), "--store", str(store), "--out", str(tmp_path / "v")] + variant) == 0
+    assert len(entries(store)) == 4
+
+
+# ------------------------------------------------------------------------------------ concurrent runs
+
+VARIANTS = {  # four overlapping workflows: the same, the same again, a stress-only change, a map change
+    "a.toml": "",
+    "b.toml": "",
+    "c.toml": '[stages.stress]\nmaterials = { lower = "copper_c11000" }\n',
+    "d.toml": '[stages.strain]\nreference = "30 degC"\n',
+}
+
+
+def test_four_overlapping_runs_at_once_compute_each_entry_once(model, tmp_path):
+    folder = model.parent
+    for name, extra in VARIANTS.items():
+        (folder / name).write_text(f'extends = "base.toml"\n{extra}')
+    store = tmp_path / "shared"
+    ctx = _context()
+    barrier = ctx.Barrier(len(VARIANTS))
+    procs = [ctx.Process(target=_child, args=(["-q", "run", str(folder / name), "--store", str(store), "--out",
+                                               str(tmp_path / f"out_{name}")], None, barrier)) for name in VARIANTS]
+    for p in procs:
+        p.start()
+    for p in procs:
+        p.join(120)
+        assert p.exitcode == 0
+    records = {n: json.loads((tmp_path / f"out_{n}" / "summary.json").read_text()) for n in VARIANTS}
+    computed: dict[tuple[str, str], int] = {}
+    for record in records.values():
+        for stage in record["stages"].values():
+            k = (stage["kind"], stage["key"])
+            computed[k] = computed.get(k, 0) + (stage["status"] == "computed")
+    assert len(computed) == 6  # heat once; map for 25 and 30 degC; stress for three inputs
+    assert set(computed.values()) == {1}, computed
+    shared = entries(store)
+    # the same workflows one after another on a fresh store
+    serial_store = tmp_path / "serial"
+    for name in VARIANTS:
+        serial = runner.run(folder / name, store=serial_store, out=tmp_path / f"serial_{name}")
+        assert figures(serial) == figures(records[name])
+    serial_entries = entries(serial_store)
+    assert serial_entries.keys() == shared.keys()
+    for k in shared:
+        assert_same_arrays(shared[k], serial_entries[k])
