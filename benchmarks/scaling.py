@@ -9,7 +9,9 @@ against log unknowns from 1e5 up.  Usage: ``python benchmarks/scaling.py [--quic
 from __future__ import annotations
 
 import argparse
+import json
 import math
+from pathlib import Path
 
 import numpy as np
 
@@ -62,12 +64,24 @@ def exponent(rows: list[dict], key: str) -> float | None:
     return float(np.polyfit(x, y, 1)[0])
 
 
-def scaling(kind: str, sides: list[int]) -> str:
-    rows = []
+DATA = Path(__file__).resolve().parent.parent / "docs" / "performance_data.json"
+
+
+def _stored() -> dict:
+    return json.loads(DATA.read_text()) if DATA.exists() else {}
+
+
+def scaling(kind: str, sides: list[int], rerun: set[int] | None) -> str:
+    """Rows for ``sides``: measured now where ``rerun`` is None or holds the side, else taken from the
+    raw results of an earlier run (docs/performance_data.json), which every measurement updates."""
+    stored, rows = _stored(), []
     for n in sides:
-        r = run(HEAT if kind == "heat" else STRESS, n=n, order=2, solver="auto")
-        print(kind, n, r, flush=True)
-        rows.append(r)
+        key = f"{kind}:{n}"
+        if rerun is None or n in rerun or key not in stored:
+            stored[key] = run(HEAT if kind == "heat" else STRESS, n=n, order=2, solver="auto")
+            print(kind, n, stored[key], flush=True)
+            DATA.write_text(json.dumps(stored, indent=1))
+        rows.append(stored[key])
     body = []
     for r in rows:
         if "error" in r:
@@ -104,11 +118,17 @@ def _fmt(v):
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__)
     p.add_argument("--quick", action="store_true", help="small sizes only, to check the script")
+    p.add_argument("--only", type=int, nargs="*", metavar="SIDE",
+                   help="measure only these mesh sides again (the other rows come from docs/performance_data.json); "
+                        "skips the solver-choice table")
     args = p.parse_args()
+    rerun = set(args.only) if args.only is not None else None
     heat_sides = [22, 30] if args.quick else [22, 47, 80, 100, 126]  # 1e4 ... 2e6 unknowns
     stress_sides = [8, 12] if args.quick else [8, 17, 24, 35]  # 1e4 ... 1e6 unknowns
-    text = [f"Machine: {machine()}.\n", scaling("heat", heat_sides), scaling("stress", stress_sides)]
+    text = [f"Machine: {machine()}.\n", scaling("heat", heat_sides, rerun), scaling("stress", stress_sides, rerun)]
     write_section("scaling" if not args.quick else "scaling-quick", "\n".join(text))
+    if rerun is not None:
+        return
     cross_heat = [12, 17, 22, 30] if not args.quick else [12]
     cross_stress = [6, 8, 10, 12] if not args.quick else [6]
     write_section("solvers" if not args.quick else "solvers-quick",

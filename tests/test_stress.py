@@ -206,49 +206,9 @@ def test_orthotropic_material_is_the_same_whichever_way_the_model_is_turned():
 # ---------------------------------------------------------------------------------------------
 # Manufactured solution for elasticity with an exact temperature
 
-A_, B_, C_ = 1.1, 0.7, 1.3
-S_VEC = np.array([1.0, -0.6, 0.8]) * 1e-3
-
-
-def phi_parts(x):
-    sa, sb, sc = np.sin(A_ * x[0] + 0.2), np.sin(B_ * x[1] + 0.4), np.sin(C_ * x[2] + 0.1)
-    ca, cb, cc = np.cos(A_ * x[0] + 0.2), np.cos(B_ * x[1] + 0.4), np.cos(C_ * x[2] + 0.1)
-    return sa, sb, sc, ca, cb, cc
-
-
-def u_exact(x):
-    sa, sb, sc, *_ = phi_parts(x)
-    return np.einsum("i,...->i...", S_VEC, sa * sb * sc)
-
-
-def u_grad(x):
-    sa, sb, sc, ca, cb, cc = phi_parts(x)
-    g = np.array([A_ * ca * sb * sc, B_ * sa * cb * sc, C_ * sa * sb * cc])
-    return np.einsum("i,j...->ij...", S_VEC, g)
-
-
-def temperature_exact(x):
-    return 300.0 + 40.0 * x[0] ** 2 - 25.0 * x[1] * x[2] + 30.0 * x[2]
-
-
-def body_force(mat):
-    """b = -div sigma for u = s phi and T above (isotropic): -(lam+mu) H(phi) s - mu lap(phi) s + (3lam+2mu) alpha grad T."""
-    e, nu, alpha = mat.youngs_modulus[0], mat.poisson_ratio[0], mat.expansion[0]
-    lam, mu = e * nu / ((1 + nu) * (1 - 2 * nu)), e / (2 * (1 + nu))
-
-    def b(x):
-        sa, sb, sc, ca, cb, cc = phi_parts(x)
-        h = np.array([
-            [-A_ * A_ * sa * sb * sc, A_ * B_ * ca * cb * sc, A_ * C_ * ca * sb * cc],
-            [A_ * B_ * ca * cb * sc, -B_ * B_ * sa * sb * sc, B_ * C_ * sa * cb * cc],
-            [A_ * C_ * ca * sb * cc, B_ * C_ * sa * cb * cc, -C_ * C_ * sa * sb * sc],
-        ])
-        lap = -(A_**2 + B_**2 + C_**2) * sa * sb * sc
-        grad_t = np.array([80.0 * x[0], -25.0 * x[2], -25.0 * x[1] + 30.0])
-        return (-(lam + mu) * np.einsum("ij...,j->i...", h, S_VEC) - mu * np.einsum("i,...->i...", S_VEC, lap)
-                + (3 * lam + 2 * mu) * alpha * grad_t)
-
-    return b
+# the manufactured fields and body force live with the verification cases (one copy)
+from pipeline.verification.manufactured import body_force, u_exact, u_grad  # noqa: E402
+from pipeline.verification.manufactured import temperature as temperature_exact  # noqa: E402
 
 
 def mms_errors(order, n):

@@ -394,7 +394,7 @@ def run(path, sets=None, store=None, out=None, rerun=None, progress=None) -> dic
         entry |= summary.figures(s.kind, result) | _support_lists(s)
         record["stages"][s.name] = entry
     record["status"] = "ok"
-    _publish(p, record, results, domains)
+    _publish(p, record, results, domains, previous)
     record["seconds"] = time.perf_counter() - started
     summary.write_json(p.folder / "summary.json", record)
     summary.write_csv(p.folder / "summary.csv", record)
@@ -412,9 +412,9 @@ def _support_lists(s: StagePlan) -> dict:
             "fixed_supports": [n for n, v in sups.items() if v.kind == "fixed"]}
 
 
-def _publish(p: Plan, record: dict, results: dict, domains: dict) -> None:
+def _publish(p: Plan, record: dict, results: dict, domains: dict, previous: dict | None = None) -> None:
     limits = {part: e.temperature_limit for part, e in p.workflow.parts.items() if e.temperature_limit is not None}
-    publish.write(p.folder, record, results, domains, p.workflow.output, limits)
+    publish.write(p.folder, record, results, domains, p.workflow.output, limits, previous)
 
 
 def report(folder: str | Path, store: str | None = None) -> dict:

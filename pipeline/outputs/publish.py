@@ -17,13 +17,22 @@ from . import figures, report, vtu
 log = logging.getLogger(__name__)
 
 
-def write(folder: Path, record: dict, results: dict, domains: dict, options, limits_K: dict[str, float]) -> None:
-    """Write the results folder's files for the stages in ``record`` and update ``record`` in place."""
+def write(folder: Path, record: dict, results: dict, domains: dict, options, limits_K: dict[str, float],
+          previous: dict | None = None) -> None:
+    """Write the results folder's files for the stages in ``record`` and update ``record`` in place.
+
+    A VTU file that the ``previous`` summary of this folder wrote for the same stage key (same result,
+    same mesh) is kept as it is."""
     folder.mkdir(parents=True, exist_ok=True)
     written = []
+    before = (previous or {}).get("stages", {})
     for name, st in record["stages"].items():
         if options.vtu and st["kind"] in ("heat", "stress"):
-            st["vtu"] = vtu.write(folder / f"{name}.vtu", domains[name], results[name]).name
+            old = before.get(name, {})
+            if old.get("key") == st["key"] and old.get("vtu") and (folder / old["vtu"]).is_file():
+                st["vtu"] = old["vtu"]
+            else:
+                st["vtu"] = vtu.write(folder / f"{name}.vtu", domains[name], results[name]).name
             written.append(st["vtu"])
     if written:
         _pvd(folder / "results.pvd", written)

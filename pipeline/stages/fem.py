@@ -23,6 +23,16 @@ def space(domain, order: int) -> kernels.Space:
     return domain._cache[key]
 
 
+def unknowns(domain, order: int) -> int:
+    """Scalar unknowns of P``order`` on ``domain``, without building the space: vertices, plus for P2
+    the edges, exact if the mesh's edges are already known, else from Euler's relation for a
+    tetrahedral body (E = V + F - T - 1 with F close to 2T): within a few percent, for memory estimates."""
+    if f"space{order}" in domain._cache:
+        return domain._cache[f"space{order}"].N
+    v, t = len(domain.points), len(domain.tetrahedra)
+    return v if order == 1 else v + v + t - 1
+
+
 def geometry(domain) -> kernels.Geometry:
     """Affine maps of the domain's tetrahedra (built once per domain)."""
     if "geometry" not in domain._cache:

@@ -120,7 +120,7 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
     fem.check_probes(domain, spec.probes, where, problems)
     if spec.order in fem.ORDERS and not problems:
         try:
-            solvers.check_memory(fem.space(domain, spec.order).N, spec.order, 1, spec.solver, spec.memory_limit, where)
+            solvers.check_memory(fem.unknowns(domain, spec.order), spec.order, 1, spec.solver, spec.memory_limit, where)
         except errors.InputError as exc:
             problems += exc.problems
     if problems:

@@ -116,6 +116,8 @@ class Space:
 
     def facet_dofs(self, facets: np.ndarray) -> np.ndarray:
         """Sorted unique scalar dofs on the given facets."""
+        if self.order == 1:  # the facets' vertices: no edge topology needed
+            return np.unique(self.mesh.facets[:, facets])
         return np.unique(np.asarray(self.dofs.get_facet_dofs(facets).all()))
 
     @cached_property

@@ -26,10 +26,11 @@ log = logging.getLogger(__name__)
 #: Unknowns up to which "auto" takes the sparse direct solver, by backend and by the number of
 #: components per point; above it AMG-preconditioned CG.  Measured by benchmarks/scaling.py
 #: (docs/performance.md, solver choice): SuperLU and AMG take equal time near 3.5e3 unknowns for P1
-#: heat and 5e3 for P2 elasticity; PARDISO (the optional ``direct`` extra, MKL) factorises P2
-#: elasticity faster than AMG converges up to several 1e4 unknowns.  Smoothed aggregation can stall on
-#: slender P2 models (boards, thin walls); such a solve falls back to the direct solver (below).
-DIRECT_LIMIT = {("SuperLU", 1): 5_000, ("SuperLU", 3): 5_000, ("PARDISO", 1): 10_000, ("PARDISO", 3): 50_000}
+#: heat and 5e3 for P2 elasticity.  PARDISO (the optional ``direct`` extra, MKL) never beats AMG on
+#: heat, but factorises P2 elasticity faster than AMG converges from about 1.5e4 to several 1e4
+#: unknowns, and it does not stall: smoothed aggregation can on slender P2 models (boards, thin walls);
+#: such a solve falls back to the direct solver (FALLBACK_LIMIT).
+DIRECT_LIMIT = {("SuperLU", 1): 5_000, ("SuperLU", 3): 5_000, ("PARDISO", 1): 5_000, ("PARDISO", 3): 50_000}
 #: Unknowns up to which an "auto" AMG solve that fails is retried with the direct solver.
 FALLBACK_LIMIT = 200_000
 METHODS = ("auto", "direct", "amg")
@@ -227,18 +228,22 @@ class _one_thread:
 
 # ------------------------------------------------------------------------------------------ memory
 
-#: Peak bytes per stored matrix entry and per unknown, measured by benchmarks/scaling.py over the
-#: whole stage (matrix, its constrained copy, assembly chunks, AMG hierarchy or factor, fields).
-BYTES_PER_ENTRY = {"amg": 60.0, "direct": 400.0}
-BYTES_PER_UNKNOWN = 1200.0
-#: Stored entries per row of the assembled matrix on unstructured tetrahedral meshes (measured).
-ENTRIES_PER_ROW = {(1, 1): 15.0, (2, 1): 28.0, (1, 3): 45.0, (2, 3): 84.0}
+#: Peak bytes of a stage per stored matrix entry and per unknown, fitted to benchmarks/scaling.py
+#: (docs/performance.md: P1 heat 3.9 KB and P2 stress 6.7 KB per unknown at 1e6, whole process).
+#: A direct factor's fill grows faster than the matrix (about N^1.35 in 3-D): its per-entry cost is
+#: scaled by (N / 2e4)^0.35 above 2e4 unknowns.
+BYTES_PER_ENTRY = {"amg": 45.0, "direct": 400.0}
+BYTES_PER_UNKNOWN = 3300.0
+#: Stored entries per row of the assembled matrix on tetrahedral meshes (measured: 14.8 for P1 heat,
+#: 77 for P2 elasticity on the benchmark cube).
+ENTRIES_PER_ROW = {(1, 1): 15.0, (2, 1): 28.0, (1, 3): 45.0, (2, 3): 80.0}
 
 
 def estimate_memory(unknowns: int, order: int, components: int, method: str) -> int:
     """Peak bytes of a stage with ``unknowns`` unknowns of P``order`` with ``components`` per point."""
     entries = ENTRIES_PER_ROW[(order, components)] * unknowns
-    return int(BYTES_PER_ENTRY[method] * entries + BYTES_PER_UNKNOWN * unknowns)
+    per_entry = BYTES_PER_ENTRY[method] * (max(1.0, unknowns / 2e4) ** 0.35 if method == "direct" else 1.0)
+    return int(per_entry * entries + BYTES_PER_UNKNOWN * unknowns)
 
 
 def available_memory() -> int:

@@ -85,7 +85,7 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
     fem.check_probes(domain, spec.probes, where, problems)
     if spec.order in fem.ORDERS and not problems:
         try:
-            solvers.check_memory(3 * fem.space(domain, spec.order).N, spec.order, 3, spec.solver, spec.memory_limit,
+            solvers.check_memory(3 * fem.unknowns(domain, spec.order), spec.order, 3, spec.solver, spec.memory_limit,
                                  where)
         except errors.InputError as exc:
             problems += exc.problems
