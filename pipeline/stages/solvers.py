@@ -161,7 +161,9 @@ class Prepared:
         record = SolveRecord(self.method, self.n, iterations, residual, seconds,
                              tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0, self.backend)
         self.solves += 1
-        if stalled or not np.all(np.isfinite(x)) or residual > max(1e3 * self.rtol, 1e-6):
+        # accepted: a relative residual within 1e3 x rtol (1e-7 by default), the round-off floor CG
+        # reaches at 2e6 unknowns (measured); a stall above it is a failure (auto falls back)
+        if not np.all(np.isfinite(x)) or residual > 1e3 * self.rtol:
             trail = ", ".join(f"{h:.1e}" for h in record.history[-8:])
             hint = ("; try the direct solver (solver = \"direct\")" if self.method == "amg" else
                     "; the matrix may be singular: check the supports and the materials")
@@ -174,13 +176,14 @@ class Prepared:
         return x, record
 
     def _watch(self, history: list[float], bnorm: float):
-        """Log every tenth iteration; stop a stalled iteration (less than 10x in the last 100)."""
+        """Log every tenth iteration; stop a stalled iteration: less than 2x in the last 30, which is
+        where CG sits when it has reached its round-off floor above rtol (measured at 2e6 unknowns)."""
         def report(xk):
             self._iterate = xk
             k = len(history) - 1
             if k % 10 == 0:
                 log.info("AMG-CG iteration %d: relative residual %.2e", k, history[-1] / bnorm)
-            if k >= 100 and history[-1] > 0.1 * history[-101]:
+            if k >= 30 and history[-1] > 0.5 * history[-31]:
                 raise _Stalled()
         return report
 
