@@ -40,7 +40,6 @@ def box(n: int, jitter: float = 0.15):
 
 def domain(n: int):
     """The benchmark cube as a thermochain Domain (part 'block'; faces xmin ... zmax)."""
-    import meshes
 
     from pipeline.model import mesh as mesh_mod
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import shutil
 import subprocess
 import sys
@@ -13,7 +12,6 @@ import numpy as np
 import pytest
 
 from pipeline.flow import runner
-from pipeline.model.units import celsius
 
 ROOT = Path(__file__).parent.parent
 DEMO = ROOT / "workflows" / "heat_spreader.toml"

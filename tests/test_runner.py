@@ -5,7 +5,6 @@ Stage executions are counted by wrapping the stage functions, not by timing."""
 from __future__ import annotations
 
 import json
-import os
 from pathlib import Path
 
 import pytest

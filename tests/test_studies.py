@@ -9,7 +9,6 @@ from __future__ import annotations
 import csv
 import json
 import math
-import shutil
 import subprocess
 import sys
 import time
@@ -260,7 +259,7 @@ def test_uniform_refinement_keeps_parts_and_surfaces(tmp_path):
 
 def fin(tmp_path: Path) -> Path:
     """A square aluminium pin fin, 5 x 5 x 50 mm, base at 125 degC, h = 25 W/(m^2*K) to 25 degC on the
-    sides and the tip (the data of the fin case in /work/shared/reference, Incropera Table 3.4 case A)."""
+    sides and the tip (Incropera et al., Fundamentals of Heat and Mass Transfer, Table 3.4, case A)."""
     m = meshes.tensor(np.linspace(0, 50, 6), [0, 5], [0, 5])
     f = meshes.faces(m)
     skin = np.concatenate([f[k] for k in ("xmax", "ymin", "ymax", "zmin", "zmax")])

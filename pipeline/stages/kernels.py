@@ -208,27 +208,34 @@ def at_points(values, n: int, nq: int, shape=()) -> np.ndarray:
 
 # ----------------------------------------------------------------------------------------------- cells
 
-def conduction(space: Space, geom: Geometry, ids, k, degree: int, out: Assembler | None = None) -> Assembler:
-    """Matrix of int k grad u . grad v: k [W/(m*K)] is a number, (3, 3), per element (n, 3, 3) or
-    at the quadrature points (n, 3, 3, nq)."""
+def _cells(space: Space, geom: Geometry, ids, degree: int, out: Assembler | None, local) -> Assembler:
+    """Assemble ``local(e, s, ref, w) -> (n, nb, nb)`` element matrices chunk by chunk; ``e`` are the
+    chunk's element ids, ``s`` its slice of ``ids``, ``w`` (n, nq) the quadrature weights times |det J|."""
     ref = reference(space.order, degree)
     out = out or Assembler(space.N)
     ids = np.asarray(ids)
-    scalar = np.ndim(k) == 0
     for s in chunks(ids, space.nb**2 * 4):
         e = ids[s]
+        out.add(space.element_dofs[:, e].T, local(e, s, ref, geom.det[e][:, None] * ref.weights[None, :]))
+    return out
+
+
+def conduction(space: Space, geom: Geometry, ids, k, degree: int, out: Assembler | None = None) -> Assembler:
+    """Matrix of int k grad u . grad v: k [W/(m*K)] is a number, (3, 3), per element (n, 3, 3) or
+    at the quadrature points (n, 3, 3, nq)."""
+    ids = np.asarray(ids)
+
+    def local(e, s, ref, w):
         G = gradients(geom, ref, e)  # (n, q, i, d)
-        w = geom.det[e][:, None] * ref.weights[None, :]
-        if scalar:
+        if np.ndim(k) == 0:
             KG = float(k) * G
         else:
-            kq = _tensor_at(k, ids, s, len(e), len(ref.weights))  # (n, q, 3, 3)
-            KG = np.matmul(G, np.swapaxes(kq, 2, 3))
+            KG = np.matmul(G, np.swapaxes(_tensor_at(k, ids, s, len(e), len(ref.weights)), 2, 3))
         n, q, nb, _ = G.shape
         Gw = (G * w[:, :, None, None]).transpose(0, 2, 1, 3).reshape(n, nb, q * 3)
-        blocks = np.matmul(Gw, KG.transpose(0, 1, 3, 2).reshape(n, q * 3, nb))
-        out.add(space.element_dofs[:, e].T, blocks)
-    return out
+        return np.matmul(Gw, KG.transpose(0, 1, 3, 2).reshape(n, q * 3, nb))
+
+    return _cells(space, geom, ids, degree, out, local)
 
 
 def _tensor_at(k, ids, s, n, nq):
@@ -242,32 +249,24 @@ def _tensor_at(k, ids, s, n, nq):
 
 def advection(space: Space, geom: Geometry, ids, b, degree: int, out: Assembler | None = None) -> Assembler:
     """Matrix of int u (b . grad v): b (n, 3, nq) at the quadrature points (Newton term of k(T))."""
-    ref = reference(space.order, degree)
-    out = out or Assembler(space.N)
-    ids = np.asarray(ids)
-    for s in chunks(ids, space.nb**2 * 4):
-        e = ids[s]
-        G = gradients(geom, ref, e)
+
+    def local(e, s, ref, w):
         bq = at_points(b[s], len(e), len(ref.weights), (3,))
-        w = geom.det[e][:, None] * ref.weights[None, :]
-        gb = np.matmul(G, bq[..., None])[..., 0] * w[:, :, None]  # (n, q, i): (b . grad v_i) dV
-        blocks = np.matmul(gb.transpose(0, 2, 1), ref.phi.T)
-        out.add(space.element_dofs[:, e].T, blocks)
-    return out
+        gb = np.matmul(gradients(geom, ref, e), bq[..., None])[..., 0] * w[:, :, None]  # (b . grad v_i) dV
+        return np.matmul(gb.transpose(0, 2, 1), ref.phi.T)
+
+    return _cells(space, geom, ids, degree, out, local)
 
 
 def mass(space: Space, geom: Geometry, ids, c, degree: int, out: Assembler | None = None) -> Assembler:
     """Matrix of int c u v: c a number, per element (n,) or at the quadrature points (n, nq)."""
-    ref = reference(space.order, degree)
-    out = out or Assembler(space.N)
     ids = np.asarray(ids)
-    for s in chunks(ids, space.nb**2 * 4):
-        e = ids[s]
+
+    def local(e, s, ref, w):
         cq = at_points(_rows(c, ids, s), len(e), len(ref.weights))
-        w = geom.det[e][:, None] * ref.weights[None, :] * cq
-        blocks = np.matmul(ref.phi[None] * w[:, None, :], ref.phi.T)
-        out.add(space.element_dofs[:, e].T, blocks)
-    return out
+        return np.matmul(ref.phi[None] * (w * cq)[:, None, :], ref.phi.T)
+
+    return _cells(space, geom, ids, degree, out, local)
 
 
 def _rows(a, ids, s):
