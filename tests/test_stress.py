@@ -149,12 +149,15 @@ def test_cantilever_tip_deflection():
     beam = P * L**3 / (3 * 200e9 * a**4 / 12)
     tip = -f.probes["tip"]["displacement_m"][2]
     assert tip == pytest.approx(beam, rel=1e-2)
-    # reactions come from the residual K u - f, so they balance the load to the solve's backward error:
-    # on this slender model (condition number near 1e9) a double-precision direct solve, even with
-    # iterative refinement, leaves a relative residual of about 4e-9 (measured)
+    # reactions come from the residual K u - f, so they balance the load to within what the solve left
+    # at the free unknowns: |sum r| <= sqrt(n) |r| = sqrt(n) residual |f| <= sqrt(n) residual P
+    # (Cauchy-Schwarz; |f| <= P for a load of positive entries summing to P).  On this slender model
+    # (condition number near 1e9) a double-precision direct solve, even with iterative refinement,
+    # leaves a relative residual of a few 1e-9 (measured), so that bound, not a fixed number, applies.
     assert f.solver.residual < 1e-8
-    assert f.reactions["xmin"][2] == pytest.approx(P, rel=1e-8)
-    assert f.equilibrium["relative"] < 1e-8
+    bound = np.sqrt(f.solver.unknowns) * f.solver.residual
+    assert abs(f.reactions["xmin"][2] - P) <= bound * P
+    assert f.equilibrium["relative"] <= bound
 
 
 @pytest.mark.parametrize("order", [1, 2])
