@@ -10,11 +10,6 @@ from . import kernels
 ORDERS = (1, 2)
 
 
-def element(order: int):
-    """scikit-fem's Lagrange tetrahedron of the given order (1 or 2), for reference assembly."""
-    return kernels._element(order)
-
-
 def space(domain, order: int) -> kernels.Space:
     """The scalar P``order`` space of ``domain`` (built once per domain)."""
     key = f"space{order}"
