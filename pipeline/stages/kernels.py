@@ -120,10 +120,6 @@ class Space:
             return np.unique(self.mesh.facets[:, facets])
         return np.unique(np.asarray(self.dofs.get_facet_dofs(facets).all()))
 
-    @cached_property
-    def nvertices(self) -> int:
-        return int(self.mesh.nvertices)
-
 
 class Geometry:
     """Affine maps of all elements: J (nel, 3, 3) with columns p1-p0, p2-p0, p3-p0; |det J|; J^-1."""

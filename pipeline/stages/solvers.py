@@ -120,8 +120,8 @@ class Prepared:
         start = time.perf_counter()
         self.backend = "pyamg"
         if self.method == "direct":
-            self._lu = _Direct(self.A)
-            self.backend = self._lu.backend
+            self._direct = _Direct(self.A)
+            self.backend = self._direct.backend
         else:
             import pyamg
 
@@ -135,14 +135,14 @@ class Prepared:
         history: list[float] = []
         stalled = False
         if self.method == "direct":
-            x = self._lu.solve(b)
+            x = self._direct.solve(b)
             iterations = 1
             for _ in range(REFINEMENT_STEPS):  # iterative refinement: recovers digits lost to pivoting
                 r = b - self.A @ x
                 history.append(float(np.linalg.norm(r)))
                 if history[-1] <= self.rtol * bnorm:
                     break
-                x = x + self._lu.solve(r)
+                x = x + self._direct.solve(r)
                 iterations += 1
         else:
             with _one_thread(), warnings.catch_warnings(record=True) as caught:
