@@ -9,6 +9,7 @@ plotter or figure object).  Colour maps are perceptually uniform: temperature "i
 from __future__ import annotations
 
 import os
+import threading
 from pathlib import Path
 
 import numpy as np
@@ -40,8 +41,18 @@ def _grid(domain, point_data: dict | None = None, cell_data: dict | None = None)
     return grid
 
 
+#: VTK's off-screen rendering is not thread-safe: two runs in one process (threads, a sweep's
+#: threaded workers) render one at a time, or both can hang inside the render call (seen in CI).
+_RENDER_LOCK = threading.Lock()
+
+
 def _render(path: Path, mesh, scalars: str, title: str, cmap: str, clim, caption: str,
             context=None, view=(1.0, -1.4, 1.1)) -> Path:
+    with _RENDER_LOCK:
+        return _render_alone(path, mesh, scalars, title, cmap, clim, caption, context, view)
+
+
+def _render_alone(path, mesh, scalars, title, cmap, clim, caption, context, view) -> Path:
     import pyvista as pv
 
     plotter = pv.Plotter(off_screen=True, window_size=SIZE)
