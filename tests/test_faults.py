@@ -330,3 +330,222 @@ def test_four_overlapping_runs_at_once_compute_each_entry_once(model, tmp_path):
     assert serial_entries.keys() == shared.keys()
     for k in shared:
         assert_same_arrays(shared[k], serial_entries[k])
+
+
+# ------------------------------------------------------------------------- the store's identity and trust
+# Issue 22 (b), (d): a store says it is one; cleaning deletes only verified entries, never through a link,
+# and reports exactly what it removed; an entry written without the user's store key is a miss.
+
+def _clean(store: Path, capsys, days: str = "0") -> tuple[int, str, str]:
+    capsys.readouterr()
+    status = cli.main(["store", str(store), "--clean", days])
+    out = capsys.readouterr()
+    return status, out.out, out.err
+
+
+def _snapshot(folder: Path) -> dict[str, str]:
+    """Every path under folder (links as links, not followed) with its content digest or link target."""
+    out = {}
+    for p in sorted(folder.rglob("*")):
+        rel = str(p.relative_to(folder))
+        out[rel] = f"-> {os.readlink(p)}" if p.is_symlink() else tree(p.parent).get(p.name, "dir") \
+            if p.is_file() else "dir"
+    return out
+
+
+def test_cleaning_a_folder_that_is_not_a_store_deletes_nothing(tmp_path, capsys):
+    project = tmp_path / "project"  # the wrong folder: a project with a manifest.json two levels down
+    (project / "docs" / "notes").mkdir(parents=True)
+    (project / "docs" / "notes" / "manifest.json").write_text('{"written": 0}')
+    (project / "src").mkdir()
+    (project / "src" / "main.py").write_text("print('hello')\n")
+    (project / "src" / ".cache.tmp").mkdir()  # a hidden folder that looks like a leftover
+    before = _snapshot(project)
+    status, out, err = _clean(project, capsys)
+    assert status == 2 and "Traceback" not in err
+    assert f"{project}: not a thermochain store (no thermochain-store.json at its root)" in err
+    assert _snapshot(project) == before
+
+
+def test_cleaning_removes_exactly_the_old_entries_and_reports_them(filled, tmp_path, capsys):
+    store, _ = filled
+    ours = store / "heat" / ".cache"  # a hidden folder that is not a leftover of ours
+    ours.mkdir()
+    (ours / "keep.txt").write_text("not thermochain's")
+    stray = store / "heat" / ("f" * 64)  # named like an entry but holding other files
+    stray.mkdir()
+    (stray / "notes.txt").write_text("mine")
+    status, out, err = _clean(store, capsys)
+    assert status == 0, err
+    assert "removed 3 entries" in out
+    assert (ours / "keep.txt").read_text() == "not thermochain's"
+    assert (stray / "notes.txt").read_text() == "mine"
+    assert not [p for p in store.glob("*/*") if len(p.name) == 64 and p != stray]
+
+
+def test_cleaning_never_follows_a_link_out_of_the_store(filled, tmp_path, capsys):
+    store, _ = filled
+    outside = tmp_path / "outside"
+    key = "a" * 64
+    (outside / key).mkdir(parents=True)  # an entry-shaped folder outside the store
+    for name in store_mod.ENTRY_FILES:
+        (outside / key / name).write_text("precious")
+    (store / "elsewhere").symlink_to(outside, target_is_directory=True)  # a linked kind folder
+    linked_key = "b" * 64
+    (store / "heat" / linked_key).symlink_to(outside / key, target_is_directory=True)  # a linked entry
+    before = _snapshot(outside)
+    s = store_mod.Store(store)
+    done = s.clean(0)
+    assert _snapshot(outside) == before
+    assert (store / "heat" / linked_key).is_symlink()
+    assert {e.key for e in done.removed} | {linked_key} != {e.key for e in done.removed}  # not reported removed
+    assert len(done.removed) == 3
+    kept = {p.name: why for p, why in done.kept}
+    assert "link" in kept["elsewhere"]
+    assert linked_key in kept
+
+
+def test_a_forged_entry_is_a_miss_and_is_recomputed(model, filled, tmp_path, capsys):
+    """Someone edits an entry's meta.json and updates its manifest's checksum to match (a consistent
+    forgery): without the store key the manifest's HMAC cannot be made, so the entry is not reused."""
+    store, first = filled
+    place = next((store / "heat").glob("?" * 64))
+    meta = json.loads((place / "meta.json").read_text())
+    meta["forged"] = True
+    content = store_mod.canonical(meta).encode()
+    (place / "meta.json").write_bytes(content)
+    manifest = json.loads((place / "manifest.json").read_text())
+    manifest["files"]["meta.json"] = __import__("hashlib").sha256(content).hexdigest()
+    (place / "manifest.json").write_text(json.dumps(manifest))
+    record = runner.run(model, store=store, out=tmp_path / "out")
+    assert record["stages"]["heat"]["status"] == "computed"
+    assert "not signed with your store key" in record["stages"]["heat"]["reason"]
+    assert "forged" not in json.loads((place / "meta.json").read_text())  # replaced by a genuine entry
+
+
+def test_an_entry_written_with_another_users_key_is_a_miss(model, filled, tmp_path, monkeypatch):
+    store, _ = filled
+    other = tmp_path / "other.key"
+    monkeypatch.setenv(store_mod.KEY_ENV, str(other))  # another user: another key file
+    record = runner.run(model, store=store, out=tmp_path / "out")
+    assert {s["status"] for s in record["stages"].values()} == {"computed"}
+    assert other.stat().st_mode & 0o777 == 0o600  # a new key is private
+
+
+def test_a_store_every_user_can_write_is_refused(model, filled, tmp_path, capsys):
+    store, _ = filled
+    os.chmod(store, 0o777)
+    try:
+        capsys.readouterr()
+        status = cli.main(["run", str(model), "--store", str(store), "--out", str(tmp_path / "out")])
+    finally:
+        os.chmod(store, 0o755)
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    assert "every user can write this store" in err and "chmod o-w" in err
+
+
+def test_a_run_refuses_a_store_folder_that_holds_other_things(model, tmp_path, capsys):
+    project = tmp_path / "project"
+    project.mkdir()
+    (project / "thesis.tex").write_text("\\documentclass{article}\n")
+    capsys.readouterr()
+    status = cli.main(["run", str(model), "--store", str(project), "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    assert f"{project}: not a thermochain store" in err and "thesis.tex" in err
+    assert sorted(p.name for p in project.iterdir()) == ["thesis.tex"]
+
+
+def test_entries_follow_the_users_umask(model, tmp_path, monkeypatch):
+    """A team store (umask 002): entry folders and files are group-writable like any file the user makes."""
+    from pipeline import files
+
+    monkeypatch.setattr(files, "_UMASK", [])  # read again
+    old = os.umask(0o002)
+    try:
+        runner.run(model, store=tmp_path / "team", out=tmp_path / "out")
+    finally:
+        os.umask(old)
+        files._UMASK.clear()
+    place = next((tmp_path / "team" / "heat").glob("?" * 64))
+    assert place.stat().st_mode & 0o777 == 0o775
+    assert {(place / n).stat().st_mode & 0o777 for n in store_mod.ENTRY_FILES} == {0o664}
+
+
+def _hold(store: Path, kind: str, k: str, ready, release) -> None:
+    with store_mod.Store(store).lock(kind, k):
+        ready.set()
+        release.wait(30)
+
+
+def test_cleaning_skips_entries_in_use_and_writes_in_progress(filled, tmp_path):
+    """Cleaning takes each entry's lock: an entry a run holds, and the temporary folder of a write in
+    progress (its key's lock is held by the writer), are kept; a leftover of a killed write is removed."""
+    import threading
+
+    store, _ = filled
+    heat = next((store / "heat").glob("?" * 64))
+    stress = next((store / "stress").glob("?" * 64))
+    live = Path(tempfile.mkdtemp(prefix=f".{stress.name}.", dir=stress.parent))  # a write in progress
+    (live / "arrays.npz").write_bytes(b"partial")
+    dead_key = "c" * 64
+    dead = Path(tempfile.mkdtemp(prefix=f".{dead_key}.", dir=heat.parent))  # a write that was killed
+    (dead / "meta.json").write_text("{}")
+    ready, release = [threading.Event(), threading.Event()], threading.Event()
+    holders = [threading.Thread(target=_hold, args=(store, p.parent.name, p.name, r, release))
+               for p, r in ((heat, ready[0]), (stress, ready[1]))]
+    for t in holders:
+        t.start()
+    for r in ready:
+        assert r.wait(30)
+    try:
+        done = store_mod.Store(store).clean(0)
+    finally:
+        release.set()
+        for t in holders:
+            t.join()
+    assert heat.is_dir() and stress.is_dir() and live.is_dir()
+    assert not dead.exists() and done.leftovers == [dead]
+    assert [e.kind for e in done.removed] == ["map"]
+    assert {p: why for p, why in done.kept} == {heat: "in use by a run (its lock is held)",
+                                                 stress: "in use by a run (its lock is held)",
+                                                 live: "in use by a run (its lock is held)"}
+
+
+def test_listing_a_store_with_a_damaged_manifest_is_no_traceback(filled, capsys):
+    store, _ = filled
+    place = next((store / "heat").glob("?" * 64))
+    (place / "manifest.json").write_bytes(b"\xff\xfe not json")
+    capsys.readouterr()
+    assert cli.main(["store", str(store)]) == 0
+    out = capsys.readouterr().out
+    assert "3 entries" in out
+    assert store_mod.Store(store).entries()[0].problem.startswith("its manifest cannot be read")
+
+
+def test_cleaning_while_runs_write_breaks_no_run(model, tmp_path):
+    """Six runs write a shared store while the store is cleaned (everything older than now) again and
+    again: every run succeeds, because cleaning takes each entry's lock and keeps writes in progress."""
+    store = tmp_path / "shared"
+    materials = ("aluminium_6061_t6", "copper_c11000", "steel_304", "fr4", "aluminium_6061_t6", "steel_304")
+    ctx = _context()
+    barrier = ctx.Barrier(len(materials) + 1)
+    procs = [ctx.Process(target=_child, args=(["-q", "run", str(model), "--store", str(store), "--out",
+                                               str(tmp_path / f"out_{i}"), "--set",
+                                               f'stages.stress.materials={{ lower = "{m}" }}'], None, barrier))
+             for i, m in enumerate(materials)]
+    for p in procs:
+        p.start()
+    barrier.wait()
+    cleaned = 0
+    while any(p.is_alive() for p in procs):
+        if store_mod.Store(store).is_store():
+            cleaned += len(store_mod.Store(store).clean(0))
+        time.sleep(0.01)
+    for p in procs:
+        p.join(120)
+    assert [p.exitcode for p in procs] == [0] * len(procs)
+    assert all(json.loads((tmp_path / f"out_{i}" / "summary.json").read_text())["status"] == "ok"
+               for i in range(len(materials)))
+    assert cleaned > 0  # the cleaning did remove entries while the runs went on

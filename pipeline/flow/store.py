@@ -40,7 +40,7 @@ MARKER = "thermochain-store.json"
 ENTRY_FILES = ("arrays.npz", "meta.json", "manifest.json")
 _KEY = re.compile(r"^[0-9a-f]{64}$")
 _KIND = re.compile(r"^[a-z][a-z0-9_]*$")
-_LEFTOVER = re.compile(r"^\.([0-9a-f]{64})\.[A-Za-z0-9_]+$")  # tempfile.mkdtemp(prefix=".KEY.")
+_LEFTOVER = re.compile(r"^\.([0-9a-f]{64})\.[a-z0-9_]{8}$")  # tempfile.mkdtemp(prefix=".KEY."); locks are .KEY.lock
 _NOFOLLOW = getattr(os, "O_NOFOLLOW", 0)
 
 
