@@ -10,6 +10,7 @@ survives a power cut.  A reader sees the old file or the new one, never a mix.
 
 from __future__ import annotations
 
+import errno
 import os
 import re
 import secrets
@@ -124,11 +125,17 @@ def replacing_path(path: str | Path):
     os.close(fd)
     try:
         yield tmp
-        fd = os.open(tmp, os.O_RDWR | _NOFOLLOW | getattr(os, "O_BINARY", 0))
+        swapped = OSError(f"{tmp} was replaced while it was written; {path} is left as it was")
+        try:
+            fd = os.open(tmp, os.O_RDWR | _NOFOLLOW | getattr(os, "O_BINARY", 0))
+        except OSError as exc:
+            if exc.errno == errno.ELOOP:  # a link now stands at the temporary name
+                raise swapped from exc
+            raise
         now = os.fstat(fd)
         if (now.st_dev, now.st_ino) != (created.st_dev, created.st_ino):
             os.close(fd)
-            raise OSError(f"{tmp} was replaced while it was written; {path} is left as it was")
+            raise swapped
         _finish(fd, tmp, path)
     except BaseException:
         _unlink(tmp)

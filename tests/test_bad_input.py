@@ -10,6 +10,7 @@ The base model is a small invented two-part box (loads made up for the test).
 from __future__ import annotations
 
 import hashlib
+import os
 import re
 import subprocess
 import sys
@@ -124,6 +125,8 @@ class Case:
     files: dict = field(default_factory=dict)
     named: str = "workflow"
     lines: int = 1
+    sets: list[str] = field(default_factory=list)  # --set options of the run
+    setup: object = None  # a function of the case folder that writes further files
 
 
 def replace(old: str, new: str) -> tuple[str, str]:
@@ -249,7 +252,61 @@ CASES = {
                                   [r"stages\.heat\.power", "part 'uper' does not exist", "did you mean 'upper'"]),
     "unknown_support_kind": Case([replace('{ kind = "fixed" }', '{ kind = "glued" }')],
                                  [r"stages\.stress\.supports\.bottom\.kind", "'fixed'", "'minimal'"]),
+    # ---- names that become file names, values beyond plausibility, hints (issue 22) ----------------------
+    "stage_name_climbs_out_of_the_results_folder": Case(
+        [replace("[stages.stress]", '[stages."../../escaped_stress"]')],
+        [r"stages\.'\.\./\.\./escaped_stress'", "becomes part of file names", "plain name", "'escaped_stress'"]),
+    "stage_name_is_an_absolute_path": Case(
+        [replace("[stages.stress]", '[stages."/tmp/elsewhere/stress"]')],
+        [r"stages\.'/tmp/elsewhere/stress'", "plain name", "'tmp_elsewhere_stress'"]),
+    "stage_name_with_a_nul_byte": Case([replace("[stages.stress]", '[stages."stre\\u0000ss"]')],
+                                       [r"stages\.'stre\\x00ss'", "plain name", "'stre_ss'"]),
+    "stage_name_reserved_by_windows": Case([replace("[stages.stress]", "[stages.nul]")],
+                                           [r"stages\.'nul'", "plain name"]),
+    "probe_name_with_a_folder_separator": Case([replace("centre = [", '"sub/centre" = [')],
+                                               [r"probes\.'sub/centre'", "plain name", "'sub_centre'"]),
+    "temperature_in_coulomb": Case([replace('ambient = "25 degC"', 'ambient = "25 C"')],
+                                   [r"stages\.heat\.convection\.top\.ambient", "not a temperature unit",
+                                    "did you mean '25 degC'"]),
+    "temperature_in_fahrenheit_as_farad": Case([replace('ambient = "25 degC"', 'ambient = "77 F"')],
+                                               [r"stages\.heat\.convection\.top\.ambient", "did you mean '77 degF'"]),
+    "temperature_implausibly_high": Case([replace('ambient = "25 degC"', "ambient = 1e300")],
+                                         [r"stages\.heat\.convection\.top\.ambient", "beyond any plausible value",
+                                          "100000 K"]),
+    "power_implausibly_large": Case([replace('upper = "0.5 W"', "upper = 1e300")],
+                                    [r"stages\.heat\.power\.upper", "beyond any plausible value", "1e\+09 W"]),
+    "set_value_is_blamed_on_the_set_option": Case(sets=["stages.heat.order=3"],
+                                                  expect=[r"^--set stages\.heat\.order=3 \(over ", r"stages\.heat\.order",
+                                                          "1 or 2"]),
+    "set_table_value_is_blamed_on_the_set_option": Case(
+        sets=['stages.heat.power={ upper = "0.5 m" }'],
+        expect=[r"^--set stages\.heat\.power=\{ upper = \"0\.5 m\" \}", r"stages\.heat\.power\.upper", "not a unit of W"]),
+    "extends_chain_too_deep": Case([replace('title = "catalogue', 'extends = "e0.toml"\ntitle = "catalogue')],
+                                   ["'extends' chain is more than 32 files deep"],
+                                   setup=lambda folder: [(folder / f"e{i}.toml").write_text(f'extends = "e{i + 1}.toml"\n')
+                                                         for i in range(1200)]),
+    "extends_names_a_huge_file": Case([replace('title = "catalogue', 'extends = "huge.toml"\ntitle = "catalogue')],
+                                      ["refused unread", r"2048\.0 MiB", "at most 1024 KiB"], named="huge.toml",
+                                      setup=lambda folder: os.truncate(_touch(folder / "huge.toml"), 2 << 30)),
+    "orthotropic_compliance_not_positive_definite": Case(
+        [replace("[parts]", '[materials.mine]\nkind = "orthotropic"\nconductivity = [1.0, 1.0, 0.3]\n'
+                 "youngs_modulus = [20e9, 20e9, 10e9]\npoisson_ratio = [0.9, 0.8, 0.8]\n"
+                 "shear_modulus = [5e9, 4e9, 4e9]\nexpansion = [14e-6, 14e-6, 60e-6]\ndensity = 1900.0\n\n[parts]"),
+         replace('material = "fr4"', 'material = "mine"')],
+        [r"material 'mine'", "not positive definite", "no such material exists", r"\|nu_xy\| < 1"]),
+    "conductivity_polynomial_negative_in_its_range": Case(
+        [replace("[parts]", "[materials.mine]\nconductivity = 100.0\nconductivity_polynomial = [100.0, -0.5]\n"
+                 "valid_from = 150.0\nvalid_to = 400.0\nyoungs_modulus = 70e9\npoisson_ratio = 0.3\n"
+                 "expansion = 23e-6\ndensity = 2700.0\n\n[parts]"),
+         replace('material = "aluminium_6061_t6"', 'material = "mine"')],
+        [r"material 'mine'", r"falls to -100 W/\(m\*K\) at 400\.0 K", "150..400 K", "must stay positive"]),
     # ---- the mesh ----------------------------------------------------------------------------------------
+    "mesh_node_tags_near_2e9": Case([replace('file = "box.msh"', 'file = "tags.msh"')],
+                                    [r"node tags go up to 2000000174 for 175 nodes", "GiB", "renumber"],
+                                    files={"tags.msh": "renumbered"}, named="tags.msh"),
+    "mesh_with_a_nan_coordinate": Case([replace('file = "box.msh"', 'file = "nan.msh"')],
+                                       ["1 node has coordinates that are not finite", "NaN"],
+                                       files={"nan.msh": "nan"}, named="nan.msh"),
     "mesh_file_missing": Case([replace('file = "box.msh"', 'file = "bx.msh"')],
                               [r"bx\.msh", "mesh file not found"]),
     "mesh_file_unreadable": Case([replace('file = "box.msh"', 'file = "broken.msh"')],
@@ -332,10 +389,39 @@ def broken_mesh(kind: str, path: Path) -> None:
                 for k, v in m.cell_data.items()}
         m = meshio.Mesh(m.points, cells, cell_data=data, field_data=m.field_data)
     meshes.write_gmsh(m, path, binary=False)
+    if kind == "renumbered":  # node tags near 2e9 (a mesh exported from a larger model without renumbering)
+        path.write_text(_renumbered(path.read_text(), 2_000_000_000 - 1))
+    elif kind == "nan":  # one node of a tetrahedron without a coordinate
+        lines = path.read_text().splitlines()
+        at = lines.index("$Nodes") + 3
+        lines[at] = " ".join(lines[at].split()[:1] + ["nan"] + lines[at].split()[2:])
+        path.write_text("\n".join(lines) + "\n")
     if kind == "duplicate":  # rename the surface group "sides" to "top" in the file
         path.write_text(path.read_text().replace('"sides"', '"top"'))
     elif kind == "clash":
         path.write_text(path.read_text().replace('"middle"', '"upper"'))
+
+
+def _renumbered(text: str, offset: int) -> str:
+    """A Gmsh 2.2 ASCII file with every node tag (in $Nodes and in the elements) increased by ``offset``."""
+    lines, out, section = text.splitlines(), [], None
+    for line in lines:
+        fields = line.split()
+        if line.startswith("$"):
+            section = line if not line.startswith("$End") else None
+        elif section == "$Nodes" and len(fields) == 4:
+            fields[0] = str(int(fields[0]) + offset)
+            line = " ".join(fields)
+        elif section == "$Elements" and len(fields) > 3:
+            head = 3 + int(fields[2])
+            line = " ".join(fields[:head] + [str(int(f) + offset) for f in fields[head:]])
+        out.append(line)
+    return "\n".join(out) + "\n"
+
+
+def _touch(path: Path) -> Path:
+    path.write_bytes(b"")
+    return path
 
 
 def setup_case(case: Case, folder: Path) -> Path:
@@ -350,6 +436,8 @@ def setup_case(case: Case, folder: Path) -> Path:
             broken_mesh({"garbage": "garbage"}.get(content, content), folder / name)
         else:
             (folder / name).write_text(content)
+    if case.setup is not None:
+        case.setup(folder)
     path = folder / "workflow.toml"
     path.write_text(text)
     return path
@@ -378,7 +466,8 @@ def test_bad_input_is_refused_clearly_and_leaves_the_store_as_it_was(name, tmp_p
     store, state = filled_store
     path = setup_case(case, tmp_path / "case")
     capsys.readouterr()
-    status = cli.main(["run", str(path), "--store", str(store), "--out", str(tmp_path / "out")])
+    status = cli.main(["run", str(path), "--store", str(store), "--out", str(tmp_path / "out")]
+                      + [a for item in case.sets for a in ("--set", item)])
     err = capsys.readouterr().err
     assert status == 2, err
     assert_message(case, tmp_path / "case", path, err)
@@ -435,3 +524,40 @@ def test_an_iterative_solve_that_does_not_converge_shows_its_residuals_and_sugge
     assert history and len(history.group(1).split(", ")) == 4, message  # the history: initial + 3 iterations
     assert message.endswith('try the direct solver (solver = "direct")')
     assert visible(tree(store)) == visible(state)
+
+
+# ------------------------------------------------------------------------- other commands, hints and notices
+
+@pytest.mark.parametrize("kind", ["folder", "not_utf8", "missing"])
+def test_a_material_file_that_cannot_be_read_is_refused_clearly(kind, tmp_path, capsys):
+    path = tmp_path / "mats.toml"
+    if kind == "folder":
+        path.mkdir()
+    elif kind == "not_utf8":
+        path.write_bytes(b"[materials.x]\ntitle = \"\xff\xfe\"\n")
+    capsys.readouterr()
+    status = cli.main(["materials", "--file", str(path)])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line, = problems(err)
+    assert line.startswith(f"{path}: ")
+    assert {"folder": "this is a folder", "not_utf8": "not a text file", "missing": "not found"}[kind] in line
+
+
+def test_a_millimetre_mesh_declared_in_metres_gets_a_notice(tmp_path, capsys, caplog):
+    """The base box (10 mm) declared in m is 10 m across: the plan goes on (it may be meant), with a notice
+    that names the unit."""
+    path = setup_case(Case([replace('unit = "mm"', 'unit = "m"'), replace('["5 mm", "5 mm", "3 mm"]', "[5, 5, 3]")]),
+                      tmp_path / "case")
+    capsys.readouterr()
+    assert cli.main(["check", str(path), "--store", str(tmp_path / "store")]) == 0
+    captured = capsys.readouterr()
+    assert "the model is 10 m across" in caplog.text and "check mesh.unit" in caplog.text  # a warning (stderr)
+    assert "note: the model is 10 m across" in captured.out  # in the mesh description too
+
+
+def test_a_bare_temperature_below_150_k_gets_a_hint(tmp_path, caplog):
+    path = setup_case(Case([replace('ambient = "25 degC"', "ambient = 35")]), tmp_path / "case")
+    assert cli.main(["-q", "check", str(path), "--store", str(tmp_path / "store")]) == 0
+    assert (f"{path}: stages.heat.convection.top.ambient: the bare number 35 is read as 35 K (-238.15 degC); "
+            'if degrees Celsius were meant, write "35 degC"') in caplog.messages  # a warning (stderr)

@@ -549,3 +549,65 @@ def test_cleaning_while_runs_write_breaks_no_run(model, tmp_path):
     assert all(json.loads((tmp_path / f"out_{i}" / "summary.json").read_text())["status"] == "ok"
                for i in range(len(materials)))
     assert cleaned > 0  # the cleaning did remove entries while the runs went on
+
+
+# ------------------------------------------------------------------------------ the one atomic writer
+# Issue 22 (c), issue 14: every write goes to a fresh unpredictable temporary name in the target's folder,
+# created without following links, then replaces the target atomically with the user's file mode.
+
+def test_a_planted_link_in_the_results_folder_is_not_written_through(tmp_path):
+    from pipeline import files
+
+    outside = tmp_path / "outside.txt"
+    outside.write_text("precious")
+    results = tmp_path / "results"
+    results.mkdir()
+    (results / "heat.vtu").symlink_to(outside)  # a link at the target's name
+    for name in (".heat.vtu.tmp", ".summary.json.tmp"):  # and at the names the old writers used
+        (results / name).symlink_to(outside)
+    files.write_text(results / "heat.vtu", "new")
+    with files.replacing_path(results / "summary.json") as tmp:
+        Path(tmp).write_text("{}")
+    assert outside.read_text() == "precious"
+    assert not (results / "heat.vtu").is_symlink() and (results / "heat.vtu").read_text() == "new"
+    assert (results / "summary.json").read_text() == "{}"
+    assert not [p for p in results.iterdir() if files.PARTIAL.match(p.name)]  # no temporary file left
+
+
+def test_the_temporary_name_is_fresh_and_a_swapped_file_is_refused(tmp_path):
+    from pipeline import files
+
+    seen = set()
+    for _ in range(3):
+        with files.replacing_path(tmp_path / "a.png") as tmp:
+            seen.add(Path(tmp).name)
+            assert files.PARTIAL.match(Path(tmp).name) and Path(tmp).suffix == ".png"
+    assert len(seen) == 3
+    outside = tmp_path / "outside"
+    outside.write_text("precious")
+    with pytest.raises(OSError, match="was replaced while it was written"):
+        with files.replacing_path(tmp_path / "b.vtu") as tmp:
+            os.unlink(tmp)
+            os.symlink(outside, tmp)  # someone swaps the temporary file for a link
+    assert not (tmp_path / "b.vtu").exists() and outside.read_text() == "precious"
+
+
+def test_a_failed_write_leaves_the_old_file_and_no_temporary(tmp_path):
+    from pipeline import files
+
+    target = tmp_path / "summary.json"
+    target.write_text("old")
+    with pytest.raises(RuntimeError):
+        with files.replacing(target, text=True) as f:
+            f.write("half")
+            raise RuntimeError("disk pulled")
+    assert target.read_text() == "old"
+    assert [p.name for p in tmp_path.iterdir()] == ["summary.json"]
+
+
+def test_written_files_follow_the_umask(tmp_path, monkeypatch):
+    from pipeline import files
+
+    for mask, mode in ((0o022, 0o644), (0o002, 0o664), (0o077, 0o600)):
+        monkeypatch.setattr(files, "_UMASK", [mask])
+        assert files.write_bytes(tmp_path / f"f{mask:o}", b"x").stat().st_mode & 0o777 == mode
