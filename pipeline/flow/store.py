@@ -86,7 +86,7 @@ def key(inputs: dict) -> str:
     return hashlib.sha256(canonical({"store_schema": SCHEMA, **inputs}).encode()).hexdigest()
 
 
-def _sha(path: Path) -> str:
+def file_hash(path: Path) -> str:
     h = hashlib.sha256()
     with path.open("rb") as f:
         for block in iter(lambda: f.read(1 << 20), b""):
@@ -290,6 +290,11 @@ class Store:
         import filelock
 
         return filelock.FileLock(self.root / kind / f".{k}.lock", is_singleton=True)
+
+    def holds(self, kind: str, k: str) -> bool:
+        """Whether an entry for this key is in the store (without verifying it)."""
+        info = _lstat(self._place(kind, k) / "manifest.json")
+        return _is_dir(self._place(kind, k)) and info is not None and stat.S_ISREG(info.st_mode)
 
     @contextmanager
     def lock(self, kind: str, k: str):
