@@ -27,7 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__, errors
+from .. import __version__, errors, files
 from ..flow import runner
 from ..flow import workflow as wf
 from ..kinds.stress import SINGULAR_PEAK
@@ -116,9 +116,10 @@ def refine(domain: mesh_mod.Domain, times: int, folder: Path) -> list[Path]:
             tags.append(np.full(len(ids), tag))
             names[name] = np.array([tag, 3])
         file = folder / f"level_{level + 1}.msh"
-        meshio.write(file, meshio.Mesh(p / factor, cells, cell_data={"gmsh:physical": tags,
-                                                                     "gmsh:geometrical": tags}, field_data=names),
-                     file_format="gmsh22", binary=True)
+        with files.replacing_path(file) as tmp:
+            meshio.write(tmp, meshio.Mesh(p / factor, cells, cell_data={"gmsh:physical": tags,
+                                                                        "gmsh:geometrical": tags}, field_data=names),
+                         file_format="gmsh22", binary=True)
         out.append(file)
     return out
 
