@@ -126,6 +126,7 @@ class Case:
     named: str = "workflow"
     lines: int = 1
     sets: list[str] = field(default_factory=list)  # --set options of the run
+    out: bool = True  # give --out (False: the workflow's own output.folder is the results folder)
     setup: object = None  # a function of the case folder that writes further files
 
 
@@ -300,6 +301,22 @@ CASES = {
                  "expansion = 23e-6\ndensity = 2700.0\n\n[parts]"),
          replace('material = "aluminium_6061_t6"', 'material = "mine"')],
         [r"material 'mine'", r"falls to -100 W/\(m\*K\) at 400\.0 K", "150..400 K", "must stay positive"]),
+    "output_folder_is_the_root": Case([replace('folder = "results"', 'folder = "/"')],
+                                      [r"output\.folder: / is the root of the file system", "a folder of its own"],
+                                      out=False),
+    "output_folder_is_a_system_folder": Case([replace('folder = "results"', 'folder = "/etc/thermochain"')],
+                                             [r"output\.folder: /etc/thermochain is a system folder"], out=False),
+    "output_folder_is_an_existing_file": Case([replace('folder = "results"', 'folder = "box.msh/results"')],
+                                              [r"output\.folder: .*box\.msh is an existing file, not a folder"],
+                                              out=False),
+    "output_folder_holds_a_foreign_summary": Case(
+        [replace('folder = "results"', 'folder = "theirs"')],
+        [r"output\.folder: .*theirs holds a summary\.json that is not a thermochain run's", "new or empty folder"],
+        out=False, setup=lambda folder: (folder / "theirs").mkdir() or (folder / "theirs" / "summary.json").write_text(
+            '{"total": 3, "items": []}')),
+    "output_folder_holds_other_files": Case(
+        [replace('folder = "results"', 'folder = "."')],
+        [r"output\.folder: .* holds files no run writes \(box\.msh, workflow\.toml\)"], out=False),
     # ---- the mesh ----------------------------------------------------------------------------------------
     "mesh_node_tags_near_2e9": Case([replace('file = "box.msh"', 'file = "tags.msh"')],
                                     [r"node tags go up to 2000000174 for 175 nodes", "GiB", "renumber"],
@@ -466,13 +483,15 @@ def test_bad_input_is_refused_clearly_and_leaves_the_store_as_it_was(name, tmp_p
     store, state = filled_store
     path = setup_case(case, tmp_path / "case")
     capsys.readouterr()
-    status = cli.main(["run", str(path), "--store", str(store), "--out", str(tmp_path / "out")]
+    before = {str(p) for p in (tmp_path / "case").rglob("*")}
+    status = cli.main(["run", str(path), "--store", str(store)] + (["--out", str(tmp_path / "out")] if case.out else [])
                       + [a for item in case.sets for a in ("--set", item)])
     err = capsys.readouterr().err
     assert status == 2, err
     assert_message(case, tmp_path / "case", path, err)
     assert tree(store) == state
     assert not (tmp_path / "out").exists()  # nothing half-written either
+    assert {str(p) for p in (tmp_path / "case").rglob("*")} == before
 
 
 @pytest.mark.parametrize("name", ["toml_syntax_error", "mesh_file_unreadable", "body_free_to_move"])
@@ -561,3 +580,33 @@ def test_a_bare_temperature_below_150_k_gets_a_hint(tmp_path, caplog):
     assert cli.main(["-q", "check", str(path), "--store", str(tmp_path / "store")]) == 0
     assert (f"{path}: stages.heat.convection.top.ambient: the bare number 35 is read as 35 K (-238.15 degC); "
             'if degrees Celsius were meant, write "35 degC"') in caplog.messages  # a warning (stderr)
+
+
+def test_report_refuses_a_summary_that_is_not_a_finished_runs(tmp_path, filled_store, capsys):
+    store, _ = filled_store
+    folder = tmp_path / "results"
+    folder.mkdir()
+    for text, words in (('{"total": 3}', "not the summary of a thermochain run"),
+                        ("\xff not json", "cannot be read as JSON"),
+                        ('{"thermochain": "0.1.0", "workflow_path": "w.toml", "stages": {}, "status": "failed"}',
+                         "the run did not finish")):
+        (folder / "summary.json").write_text(text, encoding="latin-1")
+        capsys.readouterr()
+        status = cli.main(["report", str(folder), "--store", str(store)])
+        err = capsys.readouterr().err
+        assert status == 2 and "Traceback" not in err, err
+        line, = problems(err)
+        assert line.startswith(f"{folder / 'summary.json'}: ") and words in line
+
+
+def test_material_text_is_printed_literally(tmp_path, capsys):
+    """Text from a material file is not terminal markup: '[bold]' and '[link=...]' are shown as typed."""
+    path = tmp_path / "mats.toml"
+    path.write_text('[materials.odd]\ntitle = "[bold red]loud[/bold red]"\nnote = "[link=https://example.invalid]'
+                    'click[/link] :smile:"\nconductivity = 1.0\nyoungs_modulus = 1e9\npoisson_ratio = 0.3\n'
+                    'expansion = 1e-5\ndensity = 1000.0\n')
+    capsys.readouterr()
+    assert cli.main(["materials", "odd", "--file", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "[bold red]loud[/bold red]" in out
+    assert "[link=https://example.invalid]click[/link] :smile:" in " ".join(out.split())

@@ -611,3 +611,73 @@ def test_written_files_follow_the_umask(tmp_path, monkeypatch):
     for mask, mode in ((0o022, 0o644), (0o002, 0o664), (0o077, 0o600)):
         monkeypatch.setattr(files, "_UMASK", [mask])
         assert files.write_bytes(tmp_path / f"f{mask:o}", b"x").stat().st_mode & 0o777 == mode
+
+
+# ------------------------------------------------------------------------------- the results folder
+
+def test_a_second_run_into_the_same_results_folder_waits_for_the_first(model, filled, tmp_path, caplog):
+    """Two workflows writing one results folder at once would leave it mixed: a run holds the folder's lock
+    from its first write to its last, and a second run waits (saying so) and then writes a whole folder."""
+    import threading
+
+    from pipeline.flow import folders
+
+    store, _ = filled
+    out = tmp_path / "shared_results"
+    other = model.parent / "other.toml"
+    other.write_text(model.read_text().replace("[stages.stress]", "[stages.stress_b]"))
+    holding, release = threading.Event(), threading.Event()
+
+    def first():
+        with folders.results_lock(out, lambda line: None):
+            holding.set()
+            release.wait(30)
+
+    t = threading.Thread(target=first)
+    t.start()
+    assert holding.wait(30)
+    result = {}
+    second = threading.Thread(target=lambda: result.update(r=runner.run(other, store=store, out=out)))
+    second.start()
+    second.join(1.0)
+    assert second.is_alive()  # waiting for the folder
+    release.set()
+    second.join(60)
+    t.join()
+    assert "another run is writing this results folder; waiting" in caplog.text
+    record = json.loads((out / "summary.json").read_text())
+    assert set(record["stages"]) == {"heat", "strain", "stress_b"} and record["status"] == "ok"
+
+
+def test_every_command_finds_the_same_default_store(model, tmp_path, monkeypatch, capsys):
+    """A run without --store and `thermochain store` from another folder see the same store (the user's
+    cache folder; here a temporary one)."""
+    import platformdirs
+
+    monkeypatch.delenv(store_mod.ENV, raising=False)
+    monkeypatch.setattr(platformdirs, "user_cache_path", lambda name: tmp_path / "cache" / name)
+    assert cli.main(["-q", "run", str(model), "--out", str(tmp_path / "out")]) == 0
+    monkeypatch.chdir(tmp_path / "out")
+    capsys.readouterr()
+    assert cli.main(["store"]) == 0
+    assert f"3 entries" in capsys.readouterr().out
+    assert (tmp_path / "cache" / "thermochain" / "store" / store_mod.MARKER).is_file()
+
+
+def test_results_files_follow_the_umask(model, filled, tmp_path, monkeypatch):
+    """summary.json, summary.csv and report.html get the same mode as the figures and VTU files (0664
+    with umask 002), not owner-only."""
+    from pipeline import files
+
+    store, _ = filled
+    monkeypatch.setattr(files, "_UMASK", [])
+    old = os.umask(0o002)
+    try:
+        runner.run(model, store=store, out=tmp_path / "out",
+                   sets=["output.report=true", "output.vtu=true"])
+    finally:
+        os.umask(old)
+        files._UMASK.clear()
+    modes = {p.name: p.stat().st_mode & 0o777 for p in (tmp_path / "out").iterdir() if not p.name.startswith(".")}
+    assert {"summary.json", "summary.csv", "report.html", "results.pvd", "heat.vtu"} <= set(modes)
+    assert set(modes.values()) == {0o664}, modes
