@@ -134,6 +134,26 @@ def replace(old: str, new: str) -> tuple[str, str]:
     return (old, new)
 
 
+def _field(folder: Path, name: str = "field.csv", shift_mm: float = 0.0, bad_row: str | None = None) -> None:
+    """A temperature field on a 1 mm grid over the base box (CSV x, y, z [mm], T [K]; invented values),
+    moved by ``shift_mm`` in x, with one row replaced by ``bad_row``."""
+    g = np.arange(0.0, 10.5, 1.0)
+    x, y, z = (a.ravel() for a in np.meshgrid(g, g, np.arange(0.0, 6.5, 1.0), indexing="ij"))
+    rows = [f"{a + shift_mm:g},{b:g},{c:g},{300 + 2 * c:g}" for a, b, c in zip(x, y, z)]
+    if bad_row is not None:
+        rows[37] = bad_row
+    (folder / name).write_text("x,y,z,T\n" + "\n".join(rows) + "\n")
+
+
+def _vtu_field(folder: Path) -> None:
+    """The base mesh as a VTU file with point temperatures, one of them NaN."""
+    m = box()
+    t = 300.0 + m.points[:, 2]
+    t[7] = np.nan
+    meshio.write(folder / "field.vtu", meshio.Mesh(m.points, [c for c in m.cells if c.type == "tetra"],
+                                                   point_data={"T": t}))
+
+
 CASES = {
     # ---- the workflow file -------------------------------------------------------------------------------
     "toml_syntax_error": Case([replace('title = "catalogue', 'title = = "catalogue')],
@@ -301,6 +321,22 @@ CASES = {
                  "expansion = 23e-6\ndensity = 2700.0\n\n[parts]"),
          replace('material = "aluminium_6061_t6"', 'material = "mine"')],
         [r"material 'mine'", r"falls to -100 W/\(m\*K\) at 400\.0 K", "150..400 K", "must stay positive"]),
+    "field_file_with_a_nan_temperature": Case(
+        [replace('source = "heat"\nreference', 'file = "field.csv"\nfile_unit = "mm"\nreference')], [r"field\.csv: 1 of 847 points have a coordinate or temperature that is not a finite number",
+                 "points 38 "], named="field.csv", setup=lambda folder: _field(folder, bad_row="1,2,3,nan")),
+    "field_file_with_a_text_row": Case(
+        [replace('source = "heat"\nreference', 'file = "field.csv"\nfile_unit = "mm"\nreference')], [r"field\.csv:39: expected four numbers x, y, z, T"], named="field.csv",
+        setup=lambda folder: _field(folder, bad_row="1,2,three,300")),
+    "field_file_far_from_the_model": Case(
+        [replace('source = "heat"\nreference', 'file = "field.csv"\nfile_unit = "mm"\nreference')], [r"stages\.strain: .* structural points lie outside", "same length unit and position"],
+        setup=lambda folder: _field(folder, shift_mm=50.0)),
+    "field_vtu_with_a_nan_temperature": Case(
+        [replace('source = "heat"\nreference', 'file = "field.vtu"\narray = "T"\nfile_unit = "mm"\nreference')],
+        [r"field\.vtu: 1 of 175 points have a coordinate or temperature that is not a finite number"],
+        named="field.vtu", setup=_vtu_field),
+    "reference_by_part_names_a_missing_part": Case(
+        [replace('reference = "25 degC"', 'reference = "25 degC"\nreference_by_part = { uper = "30 degC" }')],
+        [r"stages\.strain\.reference_by_part", "part 'uper' does not exist", "did you mean 'upper'"]),
     "output_folder_is_the_root": Case([replace('folder = "results"', 'folder = "/"')],
                                       [r"output\.folder: / is the root of the file system", "a folder of its own"],
                                       out=False),
