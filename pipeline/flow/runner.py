@@ -59,7 +59,7 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             if not Path(section.file).is_file():
                 raise errors.MeshError(f"{path}: {key}.file: mesh file not found: {section.file} (a path relative "
                                        "to the workflow file)")
-            domains[k] = mesh_mod.load(section.file, unit=section.unit)
+            domains[k] = _load_mesh(Path(section.file), section.unit)
         return domains[k]
 
     if workflow is None:  # the mesh or the parts table itself is unusable: nothing to check names against
@@ -111,6 +111,21 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
     if problems:
         raise errors.InputError(problems)  # once each: a part's material is read by several stages
     return Plan(path, workflow, stages, chosen, folder, main)
+
+
+_MESHES: dict[tuple, mesh_mod.Domain] = {}
+
+
+def _load_mesh(file: Path, unit: str) -> mesh_mod.Domain:
+    """A mesh read once per process while its file is unchanged (a sweep plans hundreds of variants of one
+    workflow: one Domain, not one per variant); the last few files are kept."""
+    info = file.stat()
+    k = (str(file.resolve()), unit, info.st_size, info.st_mtime_ns)
+    if k not in _MESHES:
+        _MESHES[k] = mesh_mod.load(file, unit=unit)
+        while len(_MESHES) > 4:
+            _MESHES.pop(next(iter(_MESHES)))
+    return _MESHES[k]
 
 
 def _order(workflow) -> list[str]:

@@ -116,7 +116,11 @@ class Executor:
                                         f"({exc}); start one with 'dask scheduler' (docs/studies.md)") from None
             return self
         logging.getLogger("distributed").setLevel(max(logging.WARNING, logging.getLogger().level))
-        self._workers = self.workers or os.cpu_count() or 1
+        cores = os.cpu_count() or 1
+        self._workers = min(self.workers or cores, cores)
+        if self.workers and self.workers > cores:  # more local processes than cores only compete for them
+            log.warning("--workers %d is more than the %d cores of this machine; using %d worker processes",
+                        self.workers, cores, cores)
         limits = {v: self.threads for v in THREAD_VARIABLES}
         environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {})) | limits
         with dask.config.set({"distributed.nanny.pre-spawn-environ": environ}):
