@@ -646,3 +646,71 @@ def test_material_text_is_printed_literally(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "[bold red]loud[/bold red]" in out
     assert "[link=https://example.invalid]click[/link] :smile:" in " ".join(out.split())
+
+
+# ------------------------------------------------------------------------------------------- studies
+
+def test_converge_refuses_the_same_mesh_three_times(tmp_path, filled_store, capsys):
+    store, _ = filled_store
+    path = setup_case(Case(), tmp_path / "case")
+    mesh = str(tmp_path / "case" / "box.msh")
+    capsys.readouterr()
+    status = cli.main(["converge", str(path), "--meshes", mesh, mesh, mesh, "--store", str(store),
+                       "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line, = problems(err)
+    assert line.startswith("--meshes: ") and "is the same mesh as" in line and "identical content" in line
+    assert not (tmp_path / "out").exists()
+
+
+def test_converge_refuses_levels_whose_finest_mesh_cannot_fit(tmp_path, filled_store, capsys, monkeypatch):
+    """6 levels of the 576-tetrahedron box are 18.9 million tetrahedra: refused with the estimate before any
+    refinement (the memory available is set to 1 GiB for the test)."""
+    from pipeline.stages import solvers
+
+    monkeypatch.setattr(solvers, "available_memory", lambda: 2**30)
+    store, _ = filled_store
+    path = setup_case(Case(), tmp_path / "case")
+    capsys.readouterr()
+    status = cli.main(["converge", str(path), "--levels", "6", "--store", str(store), "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line, = problems(err)
+    assert re.search(r"^--levels 6: the finest mesh would have about 18,874,368 tetrahedra \(32,768 times", line)
+    assert "1.00 GiB is available; give --levels 3 or fewer" in line
+    assert not (tmp_path / "out" / "meshes").exists()
+
+
+def test_a_sweep_checks_one_variant_up_front_and_plans_the_others_when_they_run(tmp_path, monkeypatch):
+    """400 variants: the definition and one variant are checked before anything runs (plans counted)."""
+    from pipeline.flow import runner
+    from pipeline.studies import execute, sweep
+
+    path = setup_case(Case(), tmp_path / "case")
+    films = ", ".join(f'"{5 + 0.1 * i:.1f} W/(m^2*K)"' for i in range(40))
+    ambients = ", ".join(f'"{20 + i} degC"' for i in range(10))
+    path.write_text(path.read_text() + f'\n[sweep]\ngrid = {{ "stages.heat.convection.top.film_coefficient" = '
+                    f'[{films}], "stages.heat.convection.top.ambient" = [{ambients}] }}\n')
+    counted = []
+    original = runner.plan
+    monkeypatch.setattr(runner, "plan", lambda *a, **k: counted.append(1) or original(*a, **k))
+
+    class Stop(Exception):
+        pass
+
+    def stop(self, function, tasks, done):
+        raise Stop(len(list(tasks)))
+
+    monkeypatch.setattr(execute.Executor, "map", stop)
+    with pytest.raises(Stop) as ran:
+        sweep.run(path, store=str(tmp_path / "store"), serial=True, out=str(tmp_path / "sweep"))
+    assert ran.value.args == (400,) and len(counted) <= 2
+
+
+def test_local_workers_are_capped_at_the_cores(monkeypatch, caplog):
+    from pipeline.studies import execute
+
+    monkeypatch.setattr(execute.os, "cpu_count", lambda: 2)
+    assert execute.local_workers(24) == 2 and execute.local_workers(None) == 2 and execute.local_workers(1) == 1
+    assert "--workers 24 is more than the 2 cores of this machine; using 2 worker processes" in caplog.text
