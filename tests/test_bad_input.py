@@ -714,3 +714,20 @@ def test_local_workers_are_capped_at_the_cores(monkeypatch, caplog):
     monkeypatch.setattr(execute.os, "cpu_count", lambda: 2)
     assert execute.local_workers(24) == 2 and execute.local_workers(None) == 2 and execute.local_workers(1) == 1
     assert "--workers 24 is more than the 2 cores of this machine; using 2 worker processes" in caplog.text
+
+
+def test_a_conductivity_that_is_not_positive_where_the_part_is_solved_is_warned(tmp_path, filled_store):
+    """k(T) = 5 - 0.02 T W/(m*K) (invented) is negative above 250 K: the solve converges to a heated part
+    colder than its cooled boundary, which must not pass as ok without a warning naming part and material."""
+    from pipeline.flow import runner
+
+    store, _ = filled_store
+    path = setup_case(Case([
+        replace("[parts]", "[materials.soft]\nconductivity = 1.0\nconductivity_polynomial = [5.0, -0.02]\n"
+                "youngs_modulus = 20e9\npoisson_ratio = 0.3\nexpansion = 15e-6\ndensity = 1900.0\n\n[parts]"),
+        replace('material = "fr4"', 'material = "soft"')]), tmp_path / "case")
+    record = runner.run(path, store=str(store), out=str(tmp_path / "out"))
+    found = [w for w in record["warning_records"] if w["code"] == "heat.conductivity_not_positive"]
+    assert len(found) == 1 and found[0]["data"]["part"] == "upper" and found[0]["data"]["conductivity"] < 0
+    assert "part upper: the conductivity of soft falls to" in found[0]["message"]
+    assert record["stages"]["heat"]["parts_degC"]["upper"]["min"] < 40.0  # colder than the 40 degC boundary
