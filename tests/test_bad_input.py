@@ -337,6 +337,15 @@ CASES = {
     "reference_by_part_names_a_missing_part": Case(
         [replace('reference = "25 degC"', 'reference = "25 degC"\nreference_by_part = { uper = "30 degC" }')],
         [r"stages\.strain\.reference_by_part", "part 'uper' does not exist", "did you mean 'upper'"]),
+    "radiation_with_emissivity_zero_is_the_only_way_out": Case(
+        [replace('fixed_temperature = { bottom = "40 degC" }', ""),
+         replace('[stages.heat.convection.top]\nfilm_coefficient = "10 W/(m^2*K)"\nambient = "25 degC"\n', ""),
+         replace("emissivity = 0.8", "emissivity = 0.0")],
+        [r"stages\.heat", "receive power \\(upper\\)", "radiation with emissivity > 0", "no steady state"]),
+    "pressure_on_a_surface_inside_the_body": Case(
+        [replace('supports = { bottom = { kind = "fixed" } }', 'supports = { bottom = { kind = "fixed" } }\n'
+                 'pressure = { middle = "1 MPa" }')],
+        [r"stages\.stress\.pressure", "surface 'middle' has 32 facets inside the body", "boundary surface"]),
     "output_folder_is_the_root": Case([replace('folder = "results"', 'folder = "/"')],
                                       [r"output\.folder: / is the root of the file system", "a folder of its own"],
                                       out=False),
