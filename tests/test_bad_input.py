@@ -625,6 +625,10 @@ def test_a_bare_temperature_below_150_k_gets_a_hint(tmp_path, caplog):
     assert cli.main(["-q", "check", str(path), "--store", str(tmp_path / "store")]) == 0
     assert (f"{path}: stages.heat.convection.top.ambient: the bare number 35 is read as 35 K (-238.15 degC); "
             'if degrees Celsius were meant, write "35 degC"') in caplog.messages  # a warning (stderr)
+    from pipeline.flow import runner
+
+    record = runner.run(path, store=str(tmp_path / "store"), out=str(tmp_path / "out"))
+    assert [h for h in record["hints"] if "ambient: the bare number 35 is read as 35 K" in h]  # in summary.json
 
 
 def test_report_refuses_a_summary_that_is_not_a_finished_runs(tmp_path, filled_store, capsys):

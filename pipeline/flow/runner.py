@@ -358,6 +358,7 @@ def _header(p: Plan) -> dict:
         "mesh": {"file": p.workflow.mesh.file, "unit": p.workflow.mesh.unit, "nodes": len(d.points),
                  "tetrahedra": len(d.tetrahedra), "bounding_box_m": [b.tolist() for b in d.bounding_box],
                  "part_ids": publish.vtu.part_legend(d), "notices": list(d.notices)},
+        "hints": wf.hints(p.workflow),  # e.g. bare temperatures below 150 K (read as K)
         "stages": {}, "caution": summary.CAUTION,
     }
 
