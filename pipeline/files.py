@@ -1,4 +1,5 @@
-"""The one way thermochain writes a file: whole or not at all, never through a link, with the user's mode.
+"""The one way thermochain writes a file: whole or not at all, never through a link, with the user's mode
+(and ``read_toml``, the one way it reads a TOML input file: bounded, every failure an ``InputError``).
 
 A file is written into a fresh temporary file with an unpredictable name in the target's own folder,
 created exclusively (``O_CREAT | O_EXCL``, and ``O_NOFOLLOW`` where the system has it) so that a link
@@ -14,7 +15,9 @@ import errno
 import os
 import re
 import secrets
+import stat
 import threading
+import tomllib
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -159,3 +162,34 @@ def write_bytes(path: str | Path, content: bytes) -> Path:
 def write_text(path: str | Path, text: str) -> Path:
     """Write UTF-8 ``text`` to ``path`` atomically."""
     return write_bytes(path, text.encode("utf-8"))
+
+
+def read_toml(path: str | Path, what: str, limit: int) -> dict:
+    """The tables of the TOML file ``path`` (a ``what``, e.g. "workflow file"), at most ``limit`` bytes:
+    the size is checked before reading and while reading, so a large or endless file is not read whole.
+    Every failure is an ``InputError`` that names the file."""
+    from . import errors
+
+    path = Path(path)
+    try:
+        with open(path, "rb") as f:
+            info = os.fstat(f.fileno())
+            if stat.S_ISDIR(info.st_mode):
+                raise IsADirectoryError(path)
+            if not stat.S_ISREG(info.st_mode) or info.st_size > limit:
+                size = f"{info.st_size / 2**20:.1f} MiB" if stat.S_ISREG(info.st_mode) else "not a regular file"
+                raise errors.InputError(f"{path}: refused unread ({size}); a {what} is at most {limit >> 10} KiB")
+            data = f.read(limit + 1)
+        if len(data) > limit:
+            raise errors.InputError(f"{path}: refused: more than {limit >> 10} KiB; a {what} is at most that")
+        return tomllib.loads(data.decode("utf-8"))
+    except FileNotFoundError:
+        raise errors.InputError(f"{path}: {what} not found") from None
+    except IsADirectoryError:
+        raise errors.InputError(f"{path}: this is a folder; give a {what} (TOML)") from None
+    except UnicodeDecodeError:
+        raise errors.InputError(f"{path}: not a text file (a {what} is UTF-8 TOML)") from None
+    except OSError as exc:
+        raise errors.InputError(f"{path}: cannot read the {what} ({exc.strerror or exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise errors.InputError(f"{path}: TOML syntax error (not valid TOML): {exc}") from None

@@ -10,9 +10,7 @@ from __future__ import annotations
 import copy
 import logging
 import math
-import os
 import re
-import stat
 import tomllib
 import typing
 from pathlib import Path
@@ -20,7 +18,7 @@ from typing import Annotated, Literal, Union
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, create_model
 
-from .. import errors
+from .. import errors, files
 from ..model.finishes import FINISHES
 from ..model.units import ZERO_CELSIUS, to_si
 
@@ -201,18 +199,7 @@ def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
     if len(seen) >= MAX_EXTENDS:
         raise errors.InputError(f"{seen[0]}: the 'extends' chain is more than {MAX_EXTENDS} files deep (at {path}); "
                                 "a workflow extends a few shared files at most: shorten the chain")
-    try:
-        raw = tomllib.loads(_read_text(path, MAX_FILE_BYTES, "workflow file"))
-    except FileNotFoundError:
-        raise errors.InputError(f"{path}: workflow file not found") from None
-    except IsADirectoryError:
-        raise errors.InputError(f"{path}: this is a folder; give a workflow file (TOML)") from None
-    except UnicodeDecodeError:
-        raise errors.InputError(f"{path}: not a text file (a workflow is UTF-8 TOML)") from None
-    except OSError as exc:
-        raise errors.InputError(f"{path}: cannot read the workflow file ({exc.strerror or exc})") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise errors.InputError(f"{path}: TOML syntax error: {exc}") from None
+    raw = files.read_toml(path, "workflow file", MAX_FILE_BYTES)
     _absolute_paths(raw, path.parent)
     parent = raw.pop("extends", None)
     if parent is None:
@@ -223,22 +210,6 @@ def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
         raise errors.InputError(f"{path}: extends: workflow file '{parent}' not found (looked for "
                                 f"{path.parent / parent}); give a path relative to this file")
     return merge(read_raw(path.parent / parent, seen + (path.resolve(),)), raw)
-
-
-def _read_text(path: Path, limit: int, what: str) -> str:
-    """UTF-8 text of a regular file of at most ``limit`` bytes (checked before reading, and while reading,
-    so a large or endless file is not read whole)."""
-    with open(path, "rb") as f:
-        info = os.fstat(f.fileno())
-        if stat.S_ISDIR(info.st_mode):
-            raise IsADirectoryError(path)
-        if not stat.S_ISREG(info.st_mode) or info.st_size > limit:
-            size = f"{info.st_size / 2**20:.1f} MiB" if stat.S_ISREG(info.st_mode) else "not a regular file"
-            raise errors.InputError(f"{path}: refused unread ({size}); a {what} is at most {limit >> 10} KiB")
-        data = f.read(limit + 1)
-    if len(data) > limit:
-        raise errors.InputError(f"{path}: refused: more than {limit >> 10} KiB; a {what} is at most that")
-    return data.decode("utf-8")
 
 
 def _absolute_paths(raw: dict, base: Path) -> None:

@@ -7,14 +7,13 @@ temperatures K.  Orthotropic properties are principal values in the material axe
 
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass, field, replace
 from importlib import resources
 from pathlib import Path
 
 import numpy as np
 
-from .. import errors
+from .. import errors, files
 
 #: Properties every material must give, with their units.
 REQUIRED = {
@@ -337,25 +336,7 @@ class Library:
 def read_file(path: str | Path, base: Library | None = None) -> Library:
     """Read a materials TOML file (``[materials.NAME]`` tables) on top of ``base``."""
     path = Path(path)
-    try:
-        if path.is_dir():
-            raise IsADirectoryError(path)
-        with path.open("rb") as f:
-            content = f.read(MAX_FILE_BYTES + 1)
-        if len(content) > MAX_FILE_BYTES:
-            raise errors.InputError(f"{path}: refused: more than {MAX_FILE_BYTES >> 20} MiB; a material file is "
-                                    "a few kB")
-        data = tomllib.loads(content.decode("utf-8"))
-    except FileNotFoundError:
-        raise errors.InputError(f"{path}: material file not found") from None
-    except IsADirectoryError:
-        raise errors.InputError(f"{path}: this is a folder; give a materials TOML file") from None
-    except UnicodeDecodeError:
-        raise errors.InputError(f"{path}: not a text file (a material file is UTF-8 TOML)") from None
-    except OSError as exc:
-        raise errors.InputError(f"{path}: cannot read the material file ({exc.strerror or exc})") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise errors.InputError(f"{path}: not valid TOML: {exc}") from None
+    data = files.read_toml(path, "material file", MAX_FILE_BYTES)
     records = data.get("materials")
     if not isinstance(records, dict):
         raise errors.InputError(f"{path}: expected tables [materials.NAME]")
