@@ -29,7 +29,7 @@ _JSON_BOUNDS = {"gt": "exclusiveMinimum", "ge": "minimum", "lt": "exclusiveMaxim
 
 def _quantity_schema(unit: str, bounds: dict) -> WithJsonSchema:
     """In JSON Schema a quantity is a number in SI units (with its bounds) or a string with a unit."""
-    number = {"type": "number"} | {_JSON_BOUNDS[k]: v for k, v in bounds.items()}
+    number = {"type": "number", "description": f"[{unit}]"} | {_JSON_BOUNDS[k]: v for k, v in bounds.items()}
     text = {"type": "string", "description": f"a number and a unit of the dimension of {unit}, e.g. \"2 mm\""}
     return WithJsonSchema({"anyOf": [number, text], "description": f"[{unit}]", "x-unit": unit})
 
