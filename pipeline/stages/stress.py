@@ -144,7 +144,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec.solver)
+    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec)
     del K
     reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
                  for name, pts in constraints.owner.items()}
@@ -165,10 +165,11 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     )
 
 
-def _solve_constrained(K, f, constraints, space, method):
-    """Solve in the local frames of the constrained points, with rigid-body modes for AMG; returns
-    u, the residual K u - f (the nodal reactions at constrained points [N]) and the solve record.
-    The residual comes from the local-frame matrix (T is orthogonal: K u - f = T (K_l u_l - f_l))."""
+def _solve_constrained(K, f, constraints, space, spec):
+    """Solve in the local frames of the constrained points, with rigid-body modes and the nodal
+    layout for AMG; returns u, the residual K u - f (the nodal reactions at constrained points [N])
+    and the solve record.  The residual comes from the local-frame matrix (T is orthogonal:
+    K u - f = T (K_l u_l - f_l))."""
     T = constraints.transform
     Kl = (T.T @ K @ T).tocsr()
     fl = T.T @ f
@@ -177,7 +178,10 @@ def _solve_constrained(K, f, constraints, space, method):
     free = np.setdiff1d(np.arange(len(f)), constraints.fixed)
     rhs = fl[free] - Kl[free][:, constraints.fixed] @ ul[constraints.fixed]
     modes = rigid_body_modes(space.doflocs)
-    ul[free], record = solvers.solve_spd(Kl[free][:, free], rhs, method=method, near_null=(T.T @ modes)[free])
+    mesh = space.mesh
+    layout = solvers.Layout(free, space.N, mesh.nvertices, mesh.edges if space.order == 2 else None, T)
+    ul[free], record = solvers.solve(Kl[free][:, free], rhs, method=spec.solver, near_null=(T.T @ modes)[free],
+                                     layout=layout, memory_limit=spec.memory_limit)
     return T @ ul, T @ (Kl @ ul - fl), record
 
 
