@@ -144,6 +144,40 @@ report = false
     return folder / "layered.toml"
 
 
+class _Captured(Exception):
+    pass
+
+
+def capture(workflow: Path, sets: list[str] | None = None) -> dict:
+    """The stress system of ``workflow`` as the stage hands it to the solver: A, b, near_null and
+    layout (the heat and map stages run first; nothing is solved for stress)."""
+    import tempfile
+
+    from pipeline.flow import runner
+    from pipeline.stages import solvers
+
+    seen = {}
+    original = solvers.solve
+
+    def grab(A, b, method="auto", rtol=1e-10, near_null=None, maxiter=500, layout=None, memory_limit=None):
+        if near_null is None:
+            return original(A, b, method, rtol, near_null, maxiter, layout, memory_limit)
+        seen.update(A=A, b=b, near_null=near_null, layout=layout)
+        raise _Captured()
+
+    solvers.solve = grab
+    work = Path(tempfile.mkdtemp(prefix="thermochain-capture-"))
+    try:
+        runner.run(str(workflow), sets or [], store=str(work / "store"), out=str(work / "out"))
+    except _Captured:
+        pass
+    finally:
+        solvers.solve = original
+    if not seen:
+        raise RuntimeError(f"{workflow}: no stress system was captured")
+    return seen
+
+
 def child(code: str, timeout: float = 3600) -> dict:
     """Run ``code`` (which prints one JSON line last) in a fresh Python; adds its peak RSS [MiB]
     and wall time [s].  A child that fails or runs out of time gives {"error": ...}."""

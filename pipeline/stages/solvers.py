@@ -445,5 +445,55 @@ def check_memory(unknowns: int, order: int, components: int, method: str, limit:
     return need
 
 
+# --------------------------------------------------------------------------------------------- risk
+
+#: Stiffness contrast (largest / smallest Young's modulus among the parts) from which an elasticity
+#: solve is reported as hard at planning: there smoothed aggregation with pyamg's defaults needed
+#: several times its single-material iterations or stalled (docs/performance.md, solver strategy).
+HARD_CONTRAST = 1e3
+#: Poisson ratio from which a part counts as nearly incompressible (its bulk modulus is over 5x its
+#: shear modulus; the iteration counts of docs/performance.md grow from there).
+NEARLY_INCOMPRESSIBLE = 0.45
+
+
+def risk(moduli: dict[str, tuple[float, ...]], poisson: dict[str, tuple[float, ...]], unknowns: int, order: int,
+         method: str = "auto", memory_limit: float | None = None, where: str = "stress") -> dict | None:
+    """A planning notice when the elasticity system is hard for iterative solvers, or None.
+
+    moduli, poisson: part -> its Young's moduli [Pa] and Poisson ratios (one value, or three for an
+    orthotropic material).  The record (code, where, message, data) names the contrast, the most
+    nearly incompressible part and the strategy chosen for it."""
+    stiff = max(moduli, key=lambda p: max(moduli[p]))
+    soft = min(moduli, key=lambda p: min(moduli[p]))
+    contrast = max(moduli[stiff]) / min(moduli[soft])
+    squeezed = max(poisson, key=lambda p: max(poisson[p]))
+    nu = float(max(poisson[squeezed]))
+    hard_contrast, incompressible = contrast >= HARD_CONTRAST, nu >= NEARLY_INCOMPRESSIBLE
+    if not (hard_contrast or incompressible):
+        return None
+    chosen = choose(unknowns, method, 3)
+    reasons = []
+    if hard_contrast:
+        reasons.append(f"a stiffness contrast of {contrast:.1e} ('{stiff}' against '{soft}')")
+    if incompressible:
+        reasons.append(f"a nearly incompressible part ('{squeezed}', Poisson ratio {nu:.3g})")
+    need = estimate_memory(unknowns, order, 3, "direct")
+    room = memory_room(memory_limit)
+    if chosen == "direct":
+        strategy = "the sparse direct solver (small model), which these do not affect"
+    else:
+        strategy = ("CG preconditioned by " + ("a two-level P2/P1 method with " if order == 2 else "") +
+                    f"nodal smoothed aggregation (strength threshold {THETA}, energy-minimising "
+                    "prolongation, W-cycle)")
+        if method == "auto":
+            strategy += (f"; if it stalls, the direct solver (about {_size(need)}, which fits)" if need <= room else
+                         f"; no direct fallback: it would need about {_size(need)} of {_size(room)}")
+    return {"code": "solver.hard_system", "where": where,
+            "message": f"{where}: {' and '.join(reasons)} slows iterative solvers; the solve uses {strategy}",
+            "data": {"contrast": contrast, "stiffest": stiff, "softest": soft, "poisson": nu,
+                     "poisson_part": squeezed, "method": chosen, "direct_bytes": need,
+                     "direct_fits": need <= room, "strategy": strategy}}
+
+
 def _size(n: float) -> str:
     return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"

@@ -93,6 +93,17 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         raise errors.InputError(problems)
 
 
+def risk(domain, spec: StressSpec, where: str = "stress") -> dict | None:
+    """The planning notice of ``solvers.risk`` for this model (stiffness contrast between its parts,
+    nearly incompressible parts) with the solver strategy chosen for it, or None."""
+    used = {part: spec.materials[part] for part in domain.parts if part in spec.materials}
+    if not used:
+        return None
+    return solvers.risk({p: tuple(m.youngs_modulus) for p, m in used.items()},
+                        {p: tuple(m.poisson_ratio) for p, m in used.items()}, 3 * fem.unknowns(domain, spec.order),
+                        spec.order, spec.solver, spec.memory_limit, where)
+
+
 def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stress") -> StressField:
     """Displacements, stresses, reactions and safety factors; see the module docstring.
 
