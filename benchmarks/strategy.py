@@ -7,7 +7,10 @@ threshold and energy smoothing on the P2 matrix itself, and the pipeline's choic
 assembly (benchmarks/common.py) over stiffness contrasts and interlayer Poisson ratios, and the
 shipped housing at P2.  CG to a relative residual of 1e-10, at most ``MAXITER`` iterations; the
 stall test of the pipeline does not apply to the first two columns.
-Usage: ``python benchmarks/strategy.py [--quick]``.
+``--large`` runs the whole pipeline on the layered assembly (contrast 1e5, nu 0.45) at 1e5 and 1e6
+P2 stress unknowns and on the shipped housing at P2 on its coarse and fine meshes (the fine one is
+made by cases/housing/make_mesh.py --size fine, which needs gmsh).
+Usage: ``python benchmarks/strategy.py [--quick] [--large [--fine-mesh PATH]]``.
 """
 
 from __future__ import annotations
@@ -77,10 +80,50 @@ def _cell(r: dict | None) -> str:
     return f"{r['it']} it, {r['s']:.3g} s{mark}"
 
 
+def large(fine_mesh: str | None) -> None:
+    """Whole pipeline, each run in its own process: layered at 1e5 and 1e6, housing coarse and fine."""
+    import shutil
+    import tempfile
+
+    from common import write_layered
+    from side_by_side import pipeline
+
+    rows = []
+    runs = [("layered", 17, None), ("layered", 35, None), ("housing coarse", None, None)]
+    if fine_mesh:
+        runs.append(("housing fine", None, fine_mesh))
+    for label, n, mesh in runs:
+        work = Path(tempfile.mkdtemp(prefix="thermochain-bench-"))
+        try:
+            if n:
+                workflow, sets = write_layered(work, n), []
+            else:
+                workflow, sets = ROOT / "workflows" / "housing.toml", ["stages.stress.order=2"]
+                sets += [f"mesh.file={Path(mesh).resolve()}"] if mesh else []
+            r = pipeline(workflow, work / "store", work / "out", sets)
+        finally:
+            shutil.rmtree(work, ignore_errors=True)
+        print(label, r, flush=True)
+        if "error" in r:
+            rows.append([label, None, None, None, None, None, None, r["error"]])
+            continue
+        s = r["solver"]
+        rows.append([label, s["unknowns"], s["iterations"], s["setup_seconds"], s["seconds"], r["stages"]["stress"],
+                     r["peak_mib"], s["method"]])
+    write_section("strategy-large", f"Machine: {machine()}.\n\n" + table(
+        ["case", "P2 stress unknowns", "CG iterations", "AMG setup s", "solve s", "stress stage s", "peak MiB (process)",
+         "method"], rows))
+
+
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__)
     p.add_argument("--quick", action="store_true", help="one small layered case, to check the script")
+    p.add_argument("--large", action="store_true", help="whole pipeline at 1e5 and 1e6 (minutes)")
+    p.add_argument("--fine-mesh", help="the housing's fine mesh file, for --large")
     args = p.parse_args()
+    if args.large:
+        large(args.fine_mesh)
+        return
     both = ("sa", "nodal")
     if args.quick:
         cases = [("layered", dict(n=9, contrast=1e5, poisson=0.45))]
