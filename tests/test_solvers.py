@@ -238,3 +238,20 @@ def test_a_hard_contrast_and_a_nearly_incompressible_part_are_reported_before_so
     assert solvers.risk({"a": (70e9,)}, {"a": (0.3,)}, 100_000, 2) is None
     small = solvers.risk({"a": (70e9,), "b": (1e6,)}, {"a": (0.3,), "b": (0.3,)}, 1_000, 2)
     assert small["data"]["method"] == "direct"
+
+
+def test_the_shipped_housing_reports_its_gap_pad_at_planning(tmp_path):
+    """thermochain check shows the notice before anything is solved: the housing's gap pad (E = 1 MPa,
+    nu = 0.45) beside alumina passives (303 GPa) is a 3e5 contrast (material library values)."""
+    from pathlib import Path
+
+    from pipeline.flow import runner
+
+    workflow = Path(__file__).parent.parent / "workflows" / "housing.toml"
+    plan, _ = runner.check(workflow, ["stages.stress.order=2"], store=str(tmp_path / "store"), out=str(tmp_path / "out"))
+    (stage,) = [s for s in plan.stages if s.kind == "stress"]
+    (note,) = stage.notices
+    assert note.code == "solver.hard_system" and note.data["softest"] == "gap_pad"
+    assert note.data["contrast"] == pytest.approx(303e9 / 1e6) and "two-level" in note.data["strategy"]
+    assert note.where.endswith("stages.stress")
+    assert not [s for s in plan.stages if s.kind == "heat"][0].notices

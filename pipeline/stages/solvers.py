@@ -489,7 +489,8 @@ def risk(moduli: dict[str, tuple[float, ...]], poisson: dict[str, tuple[float, .
             strategy += (f"; if it stalls, the direct solver (about {_size(need)}, which fits)" if need <= room else
                          f"; no direct fallback: it would need about {_size(need)} of {_size(room)}")
     return {"code": "solver.hard_system", "where": where,
-            "message": f"{where}: {' and '.join(reasons)} slows iterative solvers; the solve uses {strategy}",
+            "message": f"{' and '.join(reasons)}: hard for iterative solvers (docs/performance.md, solver "
+                       f"strategy); the solve uses {strategy}",
             "data": {"contrast": contrast, "stiffest": stiff, "softest": soft, "poisson": nu,
                      "poisson_part": squeezed, "method": chosen, "direct_bytes": need,
                      "direct_fits": need <= room, "strategy": strategy}}
