@@ -192,4 +192,4 @@ def read_toml(path: str | Path, what: str, limit: int) -> dict:
     except OSError as exc:
         raise errors.InputError(f"{path}: cannot read the {what} ({exc.strerror or exc})") from None
     except tomllib.TOMLDecodeError as exc:
-        raise errors.InputError(f"{path}: TOML syntax error (not valid TOML): {exc}") from None
+        raise errors.InputError(f"{path}: TOML syntax error: {exc}") from None
