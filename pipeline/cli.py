@@ -31,8 +31,8 @@ def _parser() -> argparse.ArgumentParser:
                          help="override a value by its key path, e.g. stages.heat.power.chip=3.0")
         cmd.add_argument("--rerun", action="append", default=[], metavar="STAGE", help="compute STAGE even if stored")
         cmd.add_argument("--out", help="results folder (default: the workflow's output.folder)")
-        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or "
-                                         ".thermochain-store beside the workflow)")
+        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE, else the user's cache "
+                                         "folder; `thermochain store` shows it)")
     check = sub.choices["check"]
     check.add_argument("--json", action="store_true", help="print the plan as JSON")
     _command(sub, "schema", "print the JSON Schema of workflow files")
@@ -41,7 +41,8 @@ def _parser() -> argparse.ArgumentParser:
     rep.add_argument("--store", help="stage store folder (default: the one the run used)")
     st = _command(sub, "store", "list the stage store's entries, or remove old ones")
     st.add_argument("--json", action="store_true", help="print the entries as JSON")
-    st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE or .thermochain-store)")
+    st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE, else the user's "
+                                              "cache folder, as for every command)")
     st.add_argument("--clean", type=float, metavar="DAYS", help="remove entries not used for DAYS days")
     mats = _command(sub, "materials", "list the material library with units and sources")
     mats.add_argument("--json", action="store_true", help="print every property with its unit and source as JSON")
@@ -86,8 +87,8 @@ def _study_parsers(sub) -> None:
         cmd.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                          help="override a value for every run, e.g. stages.heat.power.chip=3.0")
         cmd.add_argument("--out", help="study folder (default: the workflow's output.folder + _sweep / _convergence)")
-        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or .thermochain-store "
-                                         "beside the workflow)")
+        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE, else the user's cache "
+                                         "folder)")
     sw.add_argument("--sweep", metavar="FILE", help="sweep definition file (default: the workflow's [sweep] table)")
     sw.add_argument("--scheduler", metavar="ADDRESS", help="run on this Dask scheduler, e.g. tcp://host:8786 "
                                                             "(default: a local cluster)")
@@ -184,27 +185,37 @@ def _schema(args) -> int:
 
 
 def _store(args) -> int:
-    import os
+    import math
     import time
-    from pathlib import Path
 
     from .flow import store
 
-    root = Path(args.folder or os.environ.get(store.ENV) or ".thermochain-store")
-    s = store.Store(root)
+    s = store.Store(store.root(args.folder))
     if args.clean is not None:
-        removed = s.clean(args.clean)
-        print(f"removed {len(removed)} entries from {root}")
+        if not math.isfinite(args.clean) or args.clean < 0:
+            raise errors.InputError(f"--clean {args.clean:g}: give the age in days as a number >= 0")
+        done = s.clean(args.clean)
+        print(f"removed {len(done.removed)} entries and {len(done.leftovers)} leftovers of interrupted writes "
+              f"from {s.root}")
+        for e in done.removed:
+            print(f"  removed {e.kind} {e.key[:16]}")
+        for path, why in done.kept:
+            print(f"  kept {path.relative_to(s.root)}: {why}")
+        return 0
+    if s.root.exists() and not s.is_store():
+        print(f"{s.root} is not a thermochain store (no {store.MARKER}): 0 entries")
         return 0
     entries = s.entries()
     if args.json:
-        _print_json({"store": str(root), "entries": [{"kind": e.kind, "key": e.key, "bytes": e.size,
-                                                       "last_used": e.last_used} for e in entries]})
+        _print_json({"store": str(s.root), "entries": [{"kind": e.kind, "key": e.key, "bytes": e.size,
+                                                         "last_used": e.last_used, "problem": e.problem}
+                                                        for e in entries]})
         return 0
     for e in entries:
         age = (time.time() - e.last_used) / 86400
-        print(f"{e.kind:<7} {e.key[:16]}  {e.size / 1e6:9.3f} MB  last used {age:6.1f} days ago")
-    print(f"{len(entries)} entries, {sum(e.size for e in entries) / 1e6:.3f} MB in {root}")
+        damaged = f"  ({e.problem})" if e.problem else ""
+        print(f"{e.kind:<7} {e.key[:16]}  {e.size / 1e6:9.3f} MB  last used {age:6.1f} days ago{damaged}")
+    print(f"{len(entries)} entries, {sum(e.size for e in entries) / 1e6:.3f} MB in {s.root}")
     return 0
 
 
@@ -219,7 +230,8 @@ def _materials(args) -> int:
         chosen = [lib[args.name]] if args.name else [lib[n] for n in lib]
         _print_json({"materials": [m.to_dict() for m in chosen]})
         return 0
-    console = Console(width=None if sys.stdout.isatty() else 160)
+    # text from material files is printed literally: no rich markup, emoji codes or highlighting in it
+    console = Console(width=None if sys.stdout.isatty() else 160, markup=False, emoji=False, highlight=False)
     if args.name:
         m = lib[args.name]
         table = Table(title=f"{m.name}: {m.title} ({m.kind})")

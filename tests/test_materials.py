@@ -105,5 +105,5 @@ def test_unknown_material_names_the_closest():
 def test_syntax_error_names_the_file(tmp_path):
     bad = tmp_path / "x.toml"
     bad.write_text("[materials.a\n")
-    with pytest.raises(errors.InputError, match="x.toml: not valid TOML"):
+    with pytest.raises(errors.InputError, match="x.toml: TOML syntax error"):
         materials.read_file(bad)

@@ -94,8 +94,8 @@ def test_a_workflow_without_sweep_table_says_how_to_give_one(tmp_path):
 
 
 def test_the_sweep_table_is_in_no_stage_key(tmp_path):
-    plain = runner.plan(SPREADER, store=str(tmp_path))
-    studied = runner.plan(sweep_file(tmp_path, MATERIALS_BY_AMBIENT), store=str(tmp_path))
+    plain = runner.plan(SPREADER, store=str(tmp_path / "store"))
+    studied = runner.plan(sweep_file(tmp_path, MATERIALS_BY_AMBIENT), store=str(tmp_path / "store"))
     assert [s.key for s in plain.stages] == [s.key for s in studied.stages]
 
 

@@ -102,6 +102,7 @@ def compute(plan: base.StagePlan, upstream) -> TemperatureField:
 
 def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
     """The figures of a TemperatureField that a summary shows, in degC and W."""
+    found = list(field.notices) + _conductivity_notices(plan, field)
     return {
         "order": field.order,
         "parts_degC": {p: {k: round(celsius(v), 4) for k, v in s.items()} for p, s in field.parts.items()},
@@ -113,9 +114,28 @@ def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
         "adiabatic_surfaces": list(field.adiabatic),
         "adiabatic_intended": list(plan.inputs["options"].get("adiabatic", [])),
         "solver": field.solver.to_dict() | {"history": []},
-        "notices": [str(n) for n in field.notices],
-        "notice_records": [Notice.of(n).to_dict() for n in field.notices],
+        "notices": [str(n) for n in found],
+        "notice_records": [Notice.of(n).to_dict() for n in found],
     }
+
+
+def _conductivity_notices(plan: base.StagePlan, field: TemperatureField) -> list[Notice]:
+    """A temperature-dependent conductivity that is not positive somewhere in its part's solved temperature
+    range: the field there is not physical (heat would flow from cold to hot)."""
+    out = []
+    for part, material in sorted(plan.spec.materials.items()):
+        if not material.conductivity_varies or part not in field.parts:
+            continue
+        low, high = field.parts[part]["min"], field.parts[part]["max"]
+        t, k = material.lowest_conductivity(low, high)
+        if k <= 0:
+            out.append(Notice("heat.conductivity_not_positive",
+                              f"part {part}: the conductivity of {material.name} falls to {k:.3g} W/(m*K) at "
+                              f"{celsius(t):.1f} degC, inside the part's range {celsius(low):.1f} to "
+                              f"{celsius(high):.1f} degC: the temperatures there are not physical; correct its "
+                              "conductivity_polynomial (and give valid_from/valid_to)",
+                              "", {"part": part, "material": material.name, "temperature_K": t, "conductivity": k}))
+    return out
 
 
 def outputs(domain, field: TemperatureField):

@@ -52,19 +52,43 @@ def plan(ctx: base.Context, name: str, stage: MapStage, where: str) -> base.Stag
     target = ctx.domain_of(stage.mesh, f"stages.{name}.mesh") if stage.mesh else ctx.domain
     spec = mapping.MapSpec(stage.reference, stage.reference_by_part, stage.tolerance, stage.order)
     options = stage.model_dump(exclude={"source", "file", "mesh"})
+    problems = [errors.unknown_name("part", p, target.parts, f"{where}.reference_by_part")
+                for p in stage.reference_by_part if p not in target.parts]
+    prepared = {}
     if stage.source is not None:
         read = {"upstream": base.upstream(ctx, stage.source, SOURCE, where).key}
     else:
         file = Path(stage.file)
         if not file.is_file():
-            raise errors.InputError(f"{where}.file: temperature field file not found: {file}")
+            raise errors.InputError(problems + [f"{where}.file: temperature field file not found: {file}"])
         read = {"file_sha256": store.file_hash(file)}
+        if not problems:  # the field is read and mapped now, so its problems are found before any solve
+            _finite_field(file, stage.array)
+            prepared["load"] = mapping.from_file(file, target, spec, array=stage.array, unit=stage.file_unit,
+                                                 temperature_unit=stage.temperature_unit, where=where)
+    if problems:
+        raise errors.InputError(problems)
     inputs = ctx.base_inputs(NAME, mapping.STAGE_VERSION) | {"options": options,
                                                              "mesh": [target.source_hash, target.unit]} | read
-    return base.StagePlan(name, NAME, target, spec, inputs, source=stage.source)
+    return base.StagePlan(name, NAME, target, spec, inputs, source=stage.source, prepared=prepared)
+
+
+def _finite_field(file: Path, array: str | None) -> None:
+    """Every point of a field file needs finite coordinates and a finite temperature."""
+    import numpy as np
+
+    points, values = mapping._read_point_field(file, array)
+    bad = np.flatnonzero(~(np.isfinite(points).all(axis=1) & np.isfinite(values)))
+    if len(bad):
+        shown = ", ".join(str(i + 1) for i in bad[:10]) + (", ..." if len(bad) > 10 else "")
+        raise errors.InputError(f"{file}: {len(bad)} of {len(values)} points have a coordinate or temperature that is "
+                                f"not a finite number (NaN or infinity), points {shown} (from 1, in file order); "
+                                "every point needs numbers x, y, z, T")
 
 
 def compute(plan: base.StagePlan, upstream) -> ThermalLoad:
+    if "load" in plan.prepared:  # an external field, mapped while planning
+        return plan.prepared["load"]
     if upstream is not None:
         field, domain = upstream
         return mapping.transfer(field, domain, plan.domain, plan.spec, where=plan.where)

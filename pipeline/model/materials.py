@@ -7,14 +7,13 @@ temperatures K.  Orthotropic properties are principal values in the material axe
 
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass, field, replace
 from importlib import resources
 from pathlib import Path
 
 import numpy as np
 
-from .. import errors
+from .. import errors, files
 
 #: Properties every material must give, with their units.
 REQUIRED = {
@@ -37,6 +36,8 @@ TEXT_KEYS = {"title", "kind", "brittle", "note", "sources"}
 #: polynomial coefficients c0, c1, ... with k = sum c_i T^i (T in K)
 CURVE_KEYS = {"conductivity_table", "conductivity_polynomial"}
 KINDS = ("isotropic", "orthotropic")
+#: a material file larger than this is refused unread
+MAX_FILE_BYTES = 4 << 20
 
 
 @dataclass(frozen=True)
@@ -105,6 +106,33 @@ class Material:
             return np.stack([k] * 3), np.stack([dk] * 3), 0
         k = np.broadcast_to(np.asarray(self.conductivity, dtype=float), (3,))
         return (np.broadcast_to(k.reshape(3, *([1] * t.ndim)), (3, *t.shape)), np.zeros((3, *t.shape)), 0)
+
+    def lowest_conductivity(self, t_low: float, t_high: float) -> tuple[float, float]:
+        """(temperature [K], conductivity [W/(m*K)]) where the smallest principal conductivity is lowest on
+        [t_low, t_high]: exact for a polynomial (its end points and stationary points), a table's rows and end
+        values, a constant.  A value <= 0 means conduction is unphysical there (heat would flow uphill)."""
+        t = [float(t_low), float(t_high)]
+        if self.conductivity_polynomial:
+            c = np.polynomial.polynomial.Polynomial(self.conductivity_polynomial)
+            t += [r.real for r in c.deriv().roots() if abs(r.imag) < 1e-12 and t_low < r.real < t_high]
+        elif self.conductivity_table:
+            t += [row[0] for row in self.conductivity_table if t_low < row[0] < t_high]
+        k, _, _ = self.conductivity_at(np.asarray(t))
+        lowest = k.min(axis=0)
+        i = int(np.argmin(lowest))
+        return t[i], float(lowest[i])
+
+    def compliance(self) -> np.ndarray:
+        """(6, 6) compliance [1/Pa] in material axes, Voigt order xx, yy, zz, yz, xz, xy with engineering
+        shear; orthotropic constants as in stages/constitutive.py (nu_xy, nu_xz, nu_yz; G_xy, G_xz, G_yz)."""
+        e = np.broadcast_to(np.asarray(self.youngs_modulus, float), (3,))
+        nu = np.broadcast_to(np.asarray(self.poisson_ratio, float), (3,))
+        g = np.broadcast_to(np.asarray(self.shear_modulus or [e[0] / (2 * (1 + nu[0]))], float), (3,))
+        s = np.diag([1 / e[0], 1 / e[1], 1 / e[2], 1 / g[2], 1 / g[1], 1 / g[0]])
+        s[0, 1] = s[1, 0] = -nu[0] / e[0]
+        s[0, 2] = s[2, 0] = -nu[1] / e[0]
+        s[1, 2] = s[2, 1] = -nu[2] / e[1]
+        return s
 
     def conductivity_tensor(self) -> np.ndarray:
         """(3, 3) conductivity in model coordinates [W/(m*K)]."""
@@ -187,6 +215,9 @@ def from_record(name: str, record: dict, where: str) -> Material:
     values |= _curves(record, where, problems)
     if problems:
         raise errors.InputError(problems)
+    problems += _elastic_problems(kind, values, where) + _conductivity_range_problems(name, values, where)
+    if problems:
+        raise errors.InputError(problems)
     material = Material(
         name=name,
         title=str(record.get("title", name)),
@@ -199,6 +230,43 @@ def from_record(name: str, record: dict, where: str) -> Material:
     if "axes" in record:
         material = material.oriented(record["axes"])
     return material
+
+
+def _elastic_problems(kind: str, values: dict, where: str) -> list[str]:
+    """An orthotropic material's compliance must be positive definite (else no strain energy is positive and
+    the stiffness has no inverse): checked when the material is read."""
+    if kind != "orthotropic" or len(values.get("shear_modulus", ())) != 3:
+        return []  # without three shear moduli it is usable for heat only (a stress stage refuses it)
+    trial = Material("check", "", kind, (1.0,), values["youngs_modulus"], values["poisson_ratio"], (0.0,), 1.0,
+                     shear_modulus=values["shear_modulus"])
+    lowest = float(np.linalg.eigvalsh(trial.compliance()).min())
+    if lowest > 0:
+        return []
+    e = np.broadcast_to(np.asarray(values["youngs_modulus"], float), (3,))
+    nu = np.broadcast_to(np.asarray(values["poisson_ratio"], float), (3,))
+    bounds = [f"|nu_xy| < {np.sqrt(e[0] / e[1]):.3g}", f"|nu_xz| < {np.sqrt(e[0] / e[2]):.3g}",
+              f"|nu_yz| < {np.sqrt(e[1] / e[2]):.3g}"]
+    return [f"{where}: the orthotropic constants give a compliance that is not positive definite (smallest "
+            f"eigenvalue {lowest:.3g} 1/Pa), so no such material exists; with these moduli the Poisson ratios "
+            f"(nu_xy, nu_xz, nu_yz) = {tuple(float(v) for v in nu)} need {', '.join(bounds)} and "
+            "1 - nu_xy nu_yx - nu_yz nu_zy - nu_xz nu_zx - 2 nu_yx nu_zy nu_xz > 0"]
+
+
+def _conductivity_range_problems(name: str, values: dict, where: str) -> list[str]:
+    """k(T) must stay positive over the material's stated validity range (valid_from..valid_to)."""
+    if "conductivity_polynomial" not in values and "conductivity_table" not in values:
+        return []
+    low, high = values.get("valid_from"), values.get("valid_to")
+    if low is None or high is None:
+        return []
+    trial = Material(name, "", "isotropic", (1.0,), (1.0,), (0.0,), (0.0,), 1.0,
+                     conductivity_table=values.get("conductivity_table", ()),
+                     conductivity_polynomial=values.get("conductivity_polynomial", ()))
+    t, k = trial.lowest_conductivity(low, high)
+    if k > 0:
+        return []
+    return [f"{where}: the conductivity k(T) falls to {k:.3g} W/(m*K) at {t:.1f} K, inside its validity range "
+            f"{low:g}..{high:g} K; a conductivity must stay positive: correct the coefficients or the range"]
 
 
 def _curves(record: dict, where: str, problems: list[str]) -> dict:
@@ -290,13 +358,7 @@ class Library:
 def read_file(path: str | Path, base: Library | None = None) -> Library:
     """Read a materials TOML file (``[materials.NAME]`` tables) on top of ``base``."""
     path = Path(path)
-    try:
-        with path.open("rb") as f:
-            data = tomllib.load(f)
-    except FileNotFoundError:
-        raise errors.InputError(f"{path}: material file not found") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise errors.InputError(f"{path}: not valid TOML: {exc}") from None
+    data = files.read_toml(path, "material file", MAX_FILE_BYTES)
     records = data.get("materials")
     if not isinstance(records, dict):
         raise errors.InputError(f"{path}: expected tables [materials.NAME]")

@@ -28,6 +28,14 @@ EDGES_TET10 = ((0, 1), (1, 2), (0, 2), (0, 3), (1, 3), (2, 3))
 DEGENERATE_RATIO = 1e-10
 
 
+def max_node_tag(n: int) -> int:
+    """Largest node tag accepted in a Gmsh file of n nodes (meshio allocates an array as long as it)."""
+    return 4 * n + 1_000_000
+
+#: A model whose largest extent [m] lies outside this range gets a notice (electronics scale, common practice).
+PLAUSIBLE_SIZE_M = (1e-3, 2.0)
+
+
 @dataclass(frozen=True, repr=False)
 class Domain:
     """A linear tetrahedral mesh with named parts and surfaces.
@@ -190,6 +198,7 @@ def load(path: str | Path, unit: str) -> Domain:
         raise errors.MeshError(f"{path}: mesh file not found")
     content = path.read_bytes()
     _check_gmsh_names(content, str(path))
+    _check_gmsh_nodes(content, str(path))
     m = read_meshio(path)
     digest = hashlib.sha256(content).hexdigest()
     return from_meshio(m, unit=unit, factor=factor, source=str(path), source_hash=digest)
@@ -241,6 +250,51 @@ def _check_gmsh_names(content: bytes, where: str) -> None:
         raise errors.MeshError(problems)
 
 
+def _check_gmsh_nodes(content: bytes, where: str) -> None:
+    """Bound what meshio will allocate for a Gmsh file before it reads it: the node count must fit the file
+    and the largest node tag must be near the node count (meshio allocates an array as long as that tag)."""
+    if not content.startswith(b"$MeshFormat"):
+        return
+    header = content[:200].split(b"\n")
+    try:
+        version, binary, size = header[1].split()[:3]
+        version, binary, size = version.decode(), int(binary), int(size)
+    except (IndexError, ValueError, UnicodeDecodeError):
+        return  # meshio's own message is the one to show
+    start = content.find(b"$Nodes\n")
+    if start < 0:
+        return
+    start += len(b"$Nodes\n")
+    n = max_tag = None
+    try:
+        if version.startswith("4") and binary:
+            _, n, _, max_tag = np.frombuffer(content, dtype=f"<u{size}", count=4, offset=start).tolist()
+        elif version.startswith("4"):
+            _, n, _, max_tag = (int(v) for v in content[start:content.find(b"\n", start)].split()[:4])
+        else:
+            line_end = content.find(b"\n", start)
+            n = int(content[start:line_end])
+            if 0 < n <= len(content):
+                if binary:
+                    rows = np.frombuffer(content, dtype=[("tag", "<i4"), ("xyz", "<f8", 3)], count=n, offset=line_end + 1)
+                    max_tag = int(rows["tag"].max())
+                else:
+                    end = content.find(b"$EndNodes", line_end)
+                    with warnings.catch_warnings():
+                        warnings.simplefilter("ignore")
+                        values = np.fromstring(content[line_end + 1:end], sep=" ")  # noqa: NPY201 - text mode
+                    max_tag = int(values[::4].max()) if len(values) >= 4 else None
+    except (ValueError, TypeError, IndexError):
+        return  # damaged: meshio reports it
+    if n is not None and n > len(content):
+        raise errors.MeshError(f"{where}: the $Nodes section claims {n} nodes, more than a file of {len(content)} "
+                               "bytes can hold; the file is damaged: export it again")
+    if n is not None and max_tag is not None and max_tag > max_node_tag(n):
+        raise errors.MeshError(f"{where}: node tags go up to {max_tag} for {n} nodes; reading them would allocate "
+                               f"{8 * (max_tag + 1) / 2**30:.1f} GiB; renumber the nodes (in Gmsh: Mesh > Renumber "
+                               "nodes, or Mesh.SaveAll with renumbering) and export again")
+
+
 def from_meshio(m, unit: str = "m", factor: float | None = None, source: str = "", source_hash: str = "") -> Domain:
     """Build a ``Domain`` from a ``meshio.Mesh`` whose coordinates are in ``unit``."""
     factor = length_factor(unit) if factor is None else factor
@@ -270,6 +324,15 @@ def from_meshio(m, unit: str = "m", factor: float | None = None, source: str = "
         raise errors.MeshError(f"{where}: the mesh is 2-D; thermochain needs 3-D tetrahedra")
     points = points[:, :3] * factor
     tet = np.concatenate(tets).astype(np.int64)
+    if tet.size and (tet.min() < 0 or tet.max() >= len(points)):
+        raise errors.MeshError(f"{where}: tetrahedra refer to nodes that are not in the file (ids outside 0.."
+                               f"{len(points) - 1}); the file is damaged: export it again")
+    used_ids = np.unique(tet)
+    bad = used_ids[~np.isfinite(points[used_ids]).all(axis=1)]
+    if len(bad):
+        raise errors.MeshError(f"{where}: {len(bad)} node{'s have' if len(bad) > 1 else ' has'} coordinates that are "
+                               "not finite numbers (NaN or "
+                               f"infinity), node ids (from 0, in file order) {_ids(bad)}; export the mesh again")
     for data in mid_nodes:
         notices += _check_tet10(points, data, where)
 
@@ -289,6 +352,7 @@ def from_meshio(m, unit: str = "m", factor: float | None = None, source: str = "
         tri_tag = np.zeros(0, dtype=np.int64)
 
     _check_volumes(points, tet, where)
+    notices += _size_notice(points, unit)
     tet_tag = np.concatenate(tet_tags)
     parts = _parts(tet_tag, names.get(3, {}), where, notices)
 
@@ -451,6 +515,18 @@ def _check_volumes(points: np.ndarray, tet: np.ndarray, where: str) -> None:
                         "corners must be ordered as Gmsh and VTK write them (positive volume): re-export the mesh")
     if problems:
         raise errors.MeshError(problems)
+
+
+def _size_notice(points: np.ndarray, unit: str) -> list[str]:
+    """A notice when the model's size is far from electronics scale: the usual sign of a wrong mesh.unit."""
+    extent = float((points.max(axis=0) - points.min(axis=0)).max())
+    low, high = PLAUSIBLE_SIZE_M
+    if low <= extent <= high:
+        return []
+    hint = ("a mesh drawn in mm but declared in m is 1000 times too large" if extent > high
+            else "a mesh drawn in m but declared in mm is 1000 times too small")
+    return [f"the model is {extent:.4g} m across (its largest extent, with the mesh drawn in {unit}); electronics "
+            f"models are usually {low * 1e3:g} mm to {high:g} m: check mesh.unit ({hint})"]
 
 
 def _check_tet10(points: np.ndarray, cells: np.ndarray, where: str) -> list[str]:

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import files
 from ..model.units import celsius
 
 TEMPERATURE_MAP = "inferno"
@@ -66,7 +67,8 @@ def _render_alone(path, mesh, scalars, title, cmap, clim, caption, context, view
                                           "fmt": "%.4g"})
         plotter.add_text(caption, position="upper_left", font_size=10, color="black")
         plotter.view_vector(view)
-        plotter.screenshot(str(path))
+        with files.replacing_path(path) as tmp:
+            plotter.screenshot(str(tmp))
     finally:
         plotter.close()
     return path
@@ -136,7 +138,8 @@ def part_temperatures(path: Path, parts_degC: dict, limits: dict) -> dict:
     ax.set_ylabel("peak temperature [degC]")
     ax.set_title("peak temperature per part (dashed: limit)")
     fig.tight_layout()
-    fig.savefig(path)
+    with files.replacing_path(path) as tmp:
+        fig.savefig(tmp, format="png")
     return {"file": path.name, "range": (min(peaks), max(peaks)), "unit": "degC"}
 
 
@@ -154,5 +157,6 @@ def safety_factors(path: Path, parts: dict, required: float) -> dict:
     ax.set_ylabel("minimum safety factor [-]")
     ax.set_title(f"safety factor per part (dashed: required {required:g})")
     fig.tight_layout()
-    fig.savefig(path)
+    with files.replacing_path(path) as tmp:
+        fig.savefig(tmp, format="png")
     return {"file": path.name, "range": (min(values, default=0.0), max(values, default=0.0)), "unit": "-"}

@@ -9,7 +9,7 @@ import logging
 from pathlib import Path
 from xml.sax.saxutils import quoteattr
 
-from .. import kinds
+from .. import files, kinds
 from ..kinds.base import OutputContext
 from ..model.units import celsius
 from ..notices import Notice
@@ -54,10 +54,10 @@ def write(folder: Path, record: dict, results: dict, domains: dict, options, lim
         record["report"] = report.build(folder, record, context).name
 
 
-def _pvd(path: Path, files: list[str]) -> None:
+def _pvd(path: Path, written: list[str]) -> None:
     rows = "\n".join(f'    <DataSet timestep="{i}" group="" part="0" file={quoteattr(f)}/>'
-                     for i, f in enumerate(files))
-    path.write_text('<?xml version="1.0"?>\n<VTKFile type="Collection" version="0.1">\n  <Collection>\n'
+                     for i, f in enumerate(written))
+    files.write_text(path, '<?xml version="1.0"?>\n<VTKFile type="Collection" version="0.1">\n  <Collection>\n'
                     f"{rows}\n  </Collection>\n</VTKFile>\n")
 
 

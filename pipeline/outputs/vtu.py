@@ -61,11 +61,12 @@ def grid(domain, result=None, kind: str | None = None, scale: float = 1.0):
 
 
 def write(path: Path, domain, result, kind: str | None = None) -> Path:
-    """The VTU file of a result (written beside, then moved into place)."""
+    """The VTU file of a result (written atomically by ``pipeline.files``)."""
+    from .. import files
+
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp")
-    meshio.write(tmp, mesh(domain, result, kind), file_format="vtu", compression="zlib")
-    tmp.replace(path)
+    with files.replacing_path(path) as tmp:
+        meshio.write(tmp, mesh(domain, result, kind), file_format="vtu", compression="zlib")
     return path
 
 

@@ -370,7 +370,8 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
 def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
     count, label = domain.bodies
-    sinks = list(spec.convection) + list(spec.fixed_temperature) + list(spec.radiation)
+    sinks = list(spec.convection) + list(spec.fixed_temperature) + [
+        s for s, r in spec.radiation.items() if r.emissivity > 0]  # emissivity 0 removes no heat
     reached = np.zeros(count, dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
@@ -380,8 +381,9 @@ def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
         heated = [p for p in parts if spec.power.get(p, 0) or spec.generation.get(p, 0)]
         if heated:
             problems.append(
-                f"{where}: parts {', '.join(parts)} receive power ({', '.join(heated)}) but no convection or "
-                "fixed temperature reaches them: there is no steady state; add a boundary that removes heat"
+                f"{where}: parts {', '.join(parts)} receive power ({', '.join(heated)}) but no convection, "
+                "radiation with emissivity > 0 or fixed temperature reaches them: there is no steady state; add a "
+                "boundary that removes heat"
             )
         else:
             problems.append(

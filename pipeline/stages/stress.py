@@ -77,6 +77,9 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         for name in group:
             if name not in domain.surfaces:
                 problems.append(errors.unknown_name("surface", name, domain.surfaces, f"{where}.{key}"))
+            elif key == "pressure" and (inner := int((domain.mesh.f2t[1, domain.surfaces[name]] >= 0).sum())):
+                problems.append(f"{where}.pressure: surface '{name}' has {inner} facets inside the body, not on its "
+                                "boundary; a pressure needs a boundary surface")
     for part, m in spec.materials.items():
         if np.any(np.asarray(m.youngs_modulus) <= 0):
             problems.append(f"{where}: material '{m.name}' of part '{part}' needs a positive Young's modulus")

@@ -41,6 +41,7 @@ def prepare(tasks: list[dict]) -> dict:
     from ..flow import runner
 
     plans = []
+    swept = {k for t in tasks for k in t["values"]}
     for t in tasks:
         try:
             plans.append(runner.plan(t["workflow"], t["sets"], t["store"], t["folder"]))
@@ -49,8 +50,12 @@ def prepare(tasks: list[dict]) -> dict:
         if len(plans) == 1:
             heats = [s for s in plans[0].stages if isinstance(s.spec, heat.HeatSpec)]
             out = {s.name: _refusal(s.name, nonlinear_terms(s.spec)) for s in heats if nonlinear_terms(s.spec)}
+            out |= {s.name: {"superposed": False, "reason": f"{s.name}: each variant solved: no part power of "
+                             "this stage is swept (superposition is used for power sweeps)"}
+                    for s in heats if s.name not in out and not any(k.startswith(f"stages.{s.name}.power")
+                                                                    for k in swept)}
             if len(out) == len(heats):
-                return out
+                return out  # nothing to superpose: the other variants are planned when they run
     out = {}
     names = [s.name for s in plans[0].stages if isinstance(s.spec, heat.HeatSpec)] if plans else []
     for name in names:

@@ -13,6 +13,7 @@ import math
 import re
 from pathlib import Path
 
+from .. import files
 from ..outputs.report import STYLE, escape, table
 from ..outputs.summary import CAUTION, write_text
 
@@ -88,7 +89,8 @@ def sweep_plots(folder: Path, record: dict, names: list[str], against: str) -> l
             ax.legend(fontsize=8, title=", ".join(others), title_fontsize=8)
         fig.tight_layout()
         file = re.sub(r"[^A-Za-z0-9_.-]+", "_", name) + ".png"
-        fig.savefig(folder / file)
+        with files.replacing_path(folder / file) as tmp:
+            fig.savefig(tmp, format="png")
         plt.close(fig)
         out.append({"figure": name, "file": file, "against": against})
     return out
