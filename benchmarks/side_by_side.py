@@ -244,6 +244,7 @@ def main() -> None:
     p.add_argument("--bare", action="store_true", help="also the bare script at 1.1e5 (over 10 minutes, 8 GiB)")
     p.add_argument("--bare-timeout", type=float, default=1800.0, help="seconds before a script is stopped")
     p.add_argument("--reruns-only", action="store_true", help="only the reruns table (benchmark 3), at 1.1e5")
+    p.add_argument("--targets", action="store_true", help="only the 1.1e5 rows (cube and layered)")
     args = p.parse_args()
     if args.reruns_only:
         _, rerun = compare("cube", 17, args.repeats, 0, args.bare_timeout, with_reruns=True)
@@ -254,6 +255,8 @@ def main() -> None:
     r = args.repeats
     sizes = ([("cube", 8, 1), ("layered", 8, 0)] if args.quick else
              [("cube", 12, 1), ("cube", 17, 1 if args.bare else 0), ("layered", 17, 0)])
+    if args.targets:
+        sizes = [s for s in sizes if s[1] == 17]
     rows = [compare(case, n, r, bare_runs, args.bare_timeout)[0] for case, n, bare_runs in sizes]
     name = "side-by-side" + ("-quick" if args.quick else "")
     write_section(name, f"Machine: {machine()}.\n\n" + table(HEADER, rows))
