@@ -25,8 +25,8 @@ def test_auto_chooses_by_size_and_both_methods_agree():
     A = heat_matrix()
     b = np.random.default_rng(0).random(A.shape[0])
     assert solvers.choose(A.shape[0]) == "amg" and solvers.choose(100) == "direct"
-    x_direct, r_direct = solvers.solve_spd(A, b, "direct")
-    x_amg, r_amg = solvers.solve_spd(A, b, "amg")
+    x_direct, r_direct = solvers.solve(A, b, "direct")
+    x_amg, r_amg = solvers.solve(A, b, "amg")
     assert r_direct.residual < 1e-12 and r_amg.residual < 1e-9  # rtol 1e-10 on the CG residual
     assert np.abs(x_amg - x_direct).max() <= 1e-8 * np.abs(x_direct).max()
     assert r_amg.iterations == len(r_amg.history) - 1 and r_amg.history[-1] < 1e-10
@@ -58,7 +58,7 @@ def test_an_amg_solve_that_does_not_converge_names_its_residuals_and_the_direct_
     A = heat_matrix()
     b = np.ones(A.shape[0])
     with pytest.raises(errors.SolverError) as info:
-        solvers.solve_spd(A, b, "amg", maxiter=2)
+        solvers.solve(A, b, "amg", maxiter=2)
     message = info.value.problems[0]
     assert "did not converge" in message and "last residuals" in message and 'solver = "direct"' in message
 
@@ -66,7 +66,7 @@ def test_an_amg_solve_that_does_not_converge_names_its_residuals_and_the_direct_
 def test_auto_falls_back_to_the_direct_solver_and_says_so():
     A = heat_matrix()
     b = np.ones(A.shape[0])
-    x, record = solvers.solve_spd(A, b, "auto", maxiter=2)
+    x, record = solvers.solve(A, b, "auto", maxiter=2)
     assert record.method.startswith("direct (after AMG stalled")
     assert np.linalg.norm(A @ x - b) <= 1e-10 * np.linalg.norm(b)
 
@@ -91,7 +91,7 @@ def test_each_direct_backend_solves_symmetric_and_unsymmetric_systems(backend, m
     skew = A + 0.1 * sp.triu(A, 1, format="csr")  # unsymmetric, like the tangent of a k(T) problem
     b = np.random.default_rng(2).random(A.shape[0])
     for M in (A, skew):
-        x, record = solvers.solve_spd(M, b, "direct")
+        x, record = solvers.solve(M, b, "direct")
         assert record.backend == backend and np.linalg.norm(M @ x - b) <= 1e-11 * np.linalg.norm(b)
 
 

@@ -1,6 +1,6 @@
 """Linear solves, chosen by size, with reusable preparations.
 
-``prepare(A)`` factorises (sparse direct, SuperLU or PARDISO, with iterative refinement) or builds an
+``Prepared(A)`` factorises (sparse direct, SuperLU or PARDISO, with iterative refinement) or builds an
 AMG hierarchy once; ``Prepared.solve(b)`` then serves any number of right-hand sides on the same matrix.
 A symmetric positive definite matrix is solved by CG, an unsymmetric one (the Newton tangent of k(T)
 conduction) by restarted GMRES, both preconditioned by AMG built on the symmetric part.  Vector
@@ -367,12 +367,6 @@ def solve(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float = 1e-
         return x, SolveRecord(f"direct (after AMG stalled at {stalled_at:.1e})", record.unknowns,
                               record.iterations, record.residual, record.seconds + spent,
                               record.history, record.setup_seconds, False, record.backend)
-
-
-def solve_spd(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float = 1e-10,
-              near_null: np.ndarray | None = None, maxiter: int = 500, **options) -> tuple[np.ndarray, SolveRecord]:
-    """``solve`` for a matrix known to be symmetric positive definite (kept for callers)."""
-    return solve(A, b, method, rtol, near_null, maxiter, **options)
 
 
 class _Stalled(Exception):
