@@ -196,8 +196,9 @@ def test_an_unsymmetric_tangent_is_solved_by_gmres_not_cg():
     assert not solvers.is_symmetric(skew) and solvers.is_symmetric(A)
     b = np.random.default_rng(5).random(A.shape[0])
     x, record = solvers.solve(skew, b, method="amg")
-    assert record.method == "amg-gmres" and np.linalg.norm(skew @ x - b) <= 1e-10 * np.linalg.norm(b)
-    assert solvers.solve(A, b, method="amg")[1].method == "amg-cg"
+    assert record.method == "amg" and record.backend.startswith("pyamg GMRES(")
+    assert np.linalg.norm(skew @ x - b) <= 1e-10 * np.linalg.norm(b)
+    assert solvers.solve(A, b, method="amg")[1].backend.startswith("pyamg CG")
 
 
 def test_the_direct_fallback_follows_the_memory_estimate():

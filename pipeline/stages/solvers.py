@@ -257,7 +257,8 @@ class Prepared:
             base = self.A if self.symmetric else ((self.A + self.A.T) * 0.5).tocsr()
             with _one_thread():
                 self._amg = _Hierarchy(base, near_null, layout)
-            self.backend = f"pyamg ({self._amg.kind})"
+            self.backend = f"pyamg {'CG' if self.symmetric else f'GMRES({RESTART})'}, {self._amg.kind}" + (
+                "" if self.symmetric else " of the symmetric part")
         self.setup_seconds = time.perf_counter() - start
 
     @property
@@ -285,7 +286,7 @@ class Prepared:
         residual = float(np.linalg.norm(self.A @ x - b)) / bnorm
         seconds = time.perf_counter() - start + (0.0 if self.solves else self.setup_seconds)
         self.last_residual, self.spent = residual, seconds
-        method = self.method if self.method == "direct" else f"amg-{self.accel}"
+        method = self.method
         record = SolveRecord(method, self.n, iterations, residual, seconds,
                              tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0, self.backend)
         self.solves += 1
