@@ -256,3 +256,16 @@ def test_the_shipped_housing_reports_its_gap_pad_at_planning(tmp_path):
     assert note.data["contrast"] == pytest.approx(303e9 / 1e6) and "two-level" in note.data["strategy"]
     assert note.where.endswith("stages.stress")
     assert not [s for s in plan.stages if s.kind == "heat"][0].notices
+
+
+def test_the_embedding_in_the_full_numbering_equals_the_selection_product():
+    """Constrained unknowns become scaled identity rows: E A E^T + s I_fixed, exactly."""
+    rng = np.random.default_rng(7)
+    M = sp.random(30, 30, density=0.3, random_state=1, format="csr")
+    M = (M + M.T + sp.identity(30)).tocsr()
+    free = np.sort(rng.choice(40, 30, replace=False))
+    fixed = np.setdiff1d(np.arange(40), free)
+    E = sp.csr_matrix((np.ones(30), (free, np.arange(30))), shape=(40, 30))
+    expected = E @ M @ E.T + sp.diags(np.isin(np.arange(40), fixed) * 7.0)
+    full = solvers._embed(M, free, fixed, 7.0)
+    assert abs(full - expected).max() == 0 and full.has_sorted_indices

@@ -169,10 +169,7 @@ class _Hierarchy:
             return
         n_full, free = 3 * layout.points, layout.free
         fixed = np.setdiff1d(np.arange(n_full), free)
-        A = A.tocoo()
-        scale = np.median(A.diagonal())
-        full = sp.csr_matrix((np.r_[A.data, np.full(len(fixed), scale)],
-                              (np.r_[free[A.row], fixed], np.r_[free[A.col], fixed])), shape=(n_full, n_full))
+        full = _embed(A.tocsr(), free, fixed, float(np.median(A.diagonal())))
         B = np.zeros((n_full, near_null.shape[1]))
         B[free] = near_null
         self.cycle = "W"
@@ -213,6 +210,24 @@ class _Hierarchy:
         cycle = self.ml.aspreconditioner(cycle=self.cycle)
         n = len(self.layout.free) if self.layout is not None else self.A.shape[0]
         return spla.LinearOperator((n, n), matvec=lambda r: self.restrict(cycle @ self.lift(r)), dtype=float)
+
+
+def _embed(A: sp.csr_matrix, free: np.ndarray, fixed: np.ndarray, scale: float) -> sp.csr_matrix:
+    """A (on the sorted unknowns ``free``) as rows and columns of the full numbering, with ``scale``
+    on the diagonal of each ``fixed`` row; built in CSR directly (free is increasing, so each row's
+    columns stay sorted), without the temporaries of a COO conversion or of sparse products."""
+    n = len(free) + len(fixed)
+    counts = np.ones(n, dtype=np.int64)
+    counts[free] = np.diff(A.indptr)
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(counts, out=indptr[1:])
+    dtype = np.int32 if indptr[-1] < 2**31 - 1 and n < 2**31 - 1 else np.int64
+    indices, data = np.empty(indptr[-1], dtype=dtype), np.empty(indptr[-1])
+    own = np.ones(indptr[-1], dtype=bool)
+    own[indptr[fixed]] = False
+    indices[indptr[fixed]], data[indptr[fixed]] = fixed, scale
+    indices[own], data[own] = free.astype(dtype)[A.indices], A.data
+    return sp.csr_matrix((data, indices, indptr.astype(dtype)), shape=(n, n))
 
 
 def vertex_prolongation(layout: Layout, fixed: np.ndarray) -> sp.csr_matrix:
