@@ -269,3 +269,30 @@ def test_the_embedding_in_the_full_numbering_equals_the_selection_product():
     expected = E @ M @ E.T + sp.diags(np.isin(np.arange(40), fixed) * 7.0)
     full = solvers._embed(M, free, fixed, 7.0)
     assert abs(full - expected).max() == 0 and full.has_sorted_indices
+
+
+def test_the_k_of_t_newton_tangent_goes_to_gmres_and_keeps_newton_convergence():
+    """Kirchhoff transform (H.S. Carslaw, J.C. Jaeger, Conduction of Heat in Solids, 2nd ed. 1959,
+    sec. 1.7, from memory): k = k0 (1 + b (T - T0)) between fixed temperatures gives
+    U(T) = k0 [(T - T0) + b (T - T0)^2 / 2] linear in x.  With solver = "amg" every tangent is
+    unsymmetric and solved by GMRES; the iterates are those of the direct solve (same Newton count)
+    and the mid-plane temperature is the closed form's to the 1e-4 of P2 with 20 elements (the
+    tolerance of tests/test_heat_nonlinear.py)."""
+    from pipeline.model import mesh as mesh_mod
+    from pipeline.model.materials import from_record
+    from pipeline.stages import heat
+
+    k0, beta, t0, t1, t2, L = 20.0, 4e-3, 300.0, 500.0, 300.0, 0.05
+    mat = from_record("m", {"conductivity": k0, "conductivity_polynomial": [k0 * (1 - beta * t0), k0 * beta],
+                            "youngs_modulus": 1e9, "poisson_ratio": 0.3, "expansion": 1e-5, "density": 1.0}, "test")
+    m = meshes.tensor(np.linspace(0, L, 21), np.linspace(0, 0.01, 3), np.linspace(0, 0.01, 3), jitter=0.2)
+    d = mesh_mod.from_meshio(meshes.to_meshio(m), unit="m")
+    runs = {s: heat.solve(d, heat.HeatSpec({"body": mat}, fixed_temperature={"xmin": t1, "xmax": t2}, order=2,
+                                           probes={"mid": (L / 2, 0.005, 0.005)}, solver=s)) for s in ("amg", "direct")}
+    amg, direct = runs["amg"], runs["direct"]
+    assert amg.solver.backend.startswith("pyamg GMRES(")
+    assert len(amg.meta["newton"]) == len(direct.meta["newton"]) > 1
+    U = lambda t: k0 * ((t - t0) + beta * (t - t0) ** 2 / 2)  # noqa: E731
+    target = U(t1) - (U(t1) - U(t2)) / 2
+    t_mid = t0 + (-1 + np.sqrt(1 + 2 * beta * target / k0)) / beta
+    assert amg.probes["mid"] == pytest.approx(t_mid, abs=1e-4 * (t1 - t2))
