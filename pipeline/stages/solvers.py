@@ -206,7 +206,7 @@ class _Hierarchy:
         return x if self.layout is None else x[self.layout.free]
 
     def preconditioner(self) -> spla.LinearOperator:
-        """One V-cycle as an operator on the (free) unknowns."""
+        """One cycle (V; W for vector problems) as an operator on the free unknowns."""
         cycle = self.ml.aspreconditioner(cycle=self.cycle)
         n = len(self.layout.free) if self.layout is not None else self.A.shape[0]
         return spla.LinearOperator((n, n), matvec=lambda r: self.restrict(cycle @ self.lift(r)), dtype=float)
