@@ -179,9 +179,13 @@ def capture(workflow: Path, sets: list[str] | None = None) -> dict:
 
 
 def child(code: str, timeout: float = 3600) -> dict:
-    """Run ``code`` (which prints one JSON line last) in a fresh Python; adds its peak RSS [MiB]
-    and wall time [s].  A child that fails or runs out of time gives {"error": ...}."""
+    """Run ``code`` (which prints one JSON line last) in a fresh Python; adds its wall time [s] and
+    its CPU time (user + system, ``cpu_s``: the figure to compare on a loaded machine, where wall
+    time measures the other jobs too).  A child that fails or runs out of time gives {"error": ...}."""
+    import resource
+
     env = os.environ | ENV
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
     proc = subprocess.Popen([sys.executable, "-c", code], cwd=ROOT, env=env, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True)
@@ -196,6 +200,8 @@ def child(code: str, timeout: float = 3600) -> dict:
         return {"error": (err.strip().splitlines() or ["failed"])[-1][:200]}
     result = json.loads(out.strip().splitlines()[-1])
     result["wall_s"] = result.get("wall_s", wall)
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    result["cpu_s"] = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
     return result
 
 

@@ -66,7 +66,7 @@ def main() -> None:
     spmv_bytes = 12 * nnz + 20 * n
     prepared = solvers.Prepared(A, "amg")
     _, record = prepared.solve(A @ x)
-    c_op = prepared._ml.operator_complexity()
+    c_op = prepared._amg.ml.operator_complexity()
     per_iteration = (record.seconds - record.setup_seconds) / max(record.iterations, 1)
     passes = 5 * c_op + 1
     bound = (passes * spmv_bytes + 10 * 8 * n) / bw

@@ -213,16 +213,18 @@ def compare(case: str, n: int, repeats: int, bare_runs: int, timeout: float, wit
 
     def stats(runs):
         good = [r for r in runs if "error" not in r]
-        return (median([r["wall_s"] for r in good]), median([r["peak_mib"] for r in good])) if good else (None, None)
+        return ((median([r["wall_s"] for r in good]), median([r["peak_mib"] for r in good]),
+                 median([r["cpu_s"] for r in good])) if good else (None, None, None))
 
-    (p_wall, p_mem), (e_wall, e_mem), (b_wall, b_mem) = stats(runs_p), stats(runs_e), stats(runs_b)
+    (p_wall, p_mem, p_cpu), (e_wall, e_mem, e_cpu), (b_wall, b_mem, _) = stats(runs_p), stats(runs_e), stats(runs_b)
     ratio = lambda a, b: a / b if a is not None and b else None  # noqa: E731
     e0 = runs_e[0]
     check = f"max T {runs_p[0]['max_T']:.3f} / " + (f"{e0['max_T']:.3f} K" if "error" not in e0 else e0["error"])
     if "error" not in e0:
         check += f"; expert CG {e0['iterations']} iterations to {e0['residual']:.1e}"
     row = [case, runs_p[0].get("unknowns"), f"{repeats} / {len([r for r in runs_e if 'error' not in r])} / {len(runs_b)}",
-           p_wall, e_wall, ratio(p_wall, e_wall), p_mem, e_mem, ratio(p_mem, e_mem), b_wall, ratio(p_wall, b_wall),
+           p_wall, e_wall, ratio(p_wall, e_wall), p_cpu, e_cpu, ratio(p_cpu, e_cpu), p_mem, e_mem, ratio(p_mem, e_mem),
+           b_wall, ratio(p_wall, b_wall),
            b_mem, ratio(p_mem, b_mem), check]
     if not swaps:
         return row, None
@@ -233,6 +235,7 @@ def compare(case: str, n: int, repeats: int, bare_runs: int, timeout: float, wit
 
 
 HEADER = ["case", "stress unknowns", "runs (pipeline / expert / bare)", "pipeline s", "expert s", "time ratio to expert",
+          "pipeline CPU s", "expert CPU s", "CPU ratio to expert",
           "pipeline MiB", "expert MiB", "memory ratio to expert", "bare s", "time ratio to bare", "bare MiB",
           "memory ratio to bare", "check"]
 
@@ -244,6 +247,7 @@ def main() -> None:
     p.add_argument("--bare", action="store_true", help="also the bare script at 1.1e5 (over 10 minutes, 8 GiB)")
     p.add_argument("--bare-timeout", type=float, default=1800.0, help="seconds before a script is stopped")
     p.add_argument("--reruns-only", action="store_true", help="only the reruns table (benchmark 3), at 1.1e5")
+    p.add_argument("--targets", action="store_true", help="only the 1.1e5 rows (cube and layered)")
     args = p.parse_args()
     if args.reruns_only:
         _, rerun = compare("cube", 17, args.repeats, 0, args.bare_timeout, with_reruns=True)
@@ -254,6 +258,8 @@ def main() -> None:
     r = args.repeats
     sizes = ([("cube", 8, 1), ("layered", 8, 0)] if args.quick else
              [("cube", 12, 1), ("cube", 17, 1 if args.bare else 0), ("layered", 17, 0)])
+    if args.targets:
+        sizes = [s for s in sizes if s[1] == 17]
     rows = [compare(case, n, r, bare_runs, args.bare_timeout)[0] for case, n, bare_runs in sizes]
     name = "side-by-side" + ("-quick" if args.quick else "")
     write_section(name, f"Machine: {machine()}.\n\n" + table(HEADER, rows))

@@ -573,8 +573,8 @@ def test_an_iterative_solve_that_does_not_converge_shows_its_residuals_and_sugge
     store, state = filled_store
     original = solvers.Prepared.__init__
     monkeypatch.setattr(solvers.Prepared, "__init__",
-                        lambda self, A, method="auto", near_null=None, rtol=1e-10, maxiter=500, *rest, **kw:
-                        original(self, A, method, near_null, rtol, min(maxiter, 3), *rest, **kw))
+                        lambda self, A, method="auto", near_null=None, rtol=1e-10, maxiter=500, *more, **kw:
+                        original(self, A, method, near_null, rtol, min(maxiter, 3), *more, **kw))
     path = setup_case(Case([replace('order = 1\nsupports', 'order = 1\nsolver = "amg"\nsupports')]), tmp_path / "case")
     capsys.readouterr()
     status = cli.main(["run", str(path), "--store", str(store), "--out", str(tmp_path / "out")])

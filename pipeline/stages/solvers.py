@@ -1,6 +1,6 @@
 """Linear solves, chosen by size, with reusable preparations.
 
-``prepare(A)`` factorises (sparse direct, SuperLU or PARDISO, with iterative refinement) or builds an
+``Prepared(A)`` factorises (sparse direct, SuperLU or PARDISO, with iterative refinement) or builds an
 AMG hierarchy once; ``Prepared.solve(b)`` then serves any number of right-hand sides on the same matrix.
 A symmetric positive definite matrix is solved by CG, an unsymmetric one (the Newton tangent of k(T)
 conduction) by restarted GMRES, both preconditioned by AMG built on the symmetric part.  Vector
@@ -41,10 +41,15 @@ REFINEMENT_STEPS = 3
 #: aggregate and stalls at a 1e5 stiffness contrast; 0.1 converges (docs/performance.md, solver
 #: strategy: the housing at P1 takes 133 iterations at 0, 58 at 0.05, 49 at 0.1, 250 at 0.2).
 THETA = 0.1
+#: Relative residual below which a CG or GMRES iteration that gains less than 2x in 30 iterations
+#: counts as stalled at its round-off floor (1e-8 to 1e-9 at 2e6 heat unknowns, measured); above it
+#: a plateau runs on to maxiter (the layered assembly at 1e6 unknowns sat at 4.8e-4 after 50).
+FLOOR = 1e-6
 #: GMRES restart length for unsymmetric systems (memory: RESTART vectors of the system's size).
 RESTART = 40
-#: Relative asymmetry max|A - A^T| / max|A| above which a matrix is solved as unsymmetric.
-SYMMETRY_TOLERANCE = 1e-12
+#: Relative asymmetry (``is_symmetric``) above which a matrix is solved as unsymmetric; round-off in
+#: the products of a symmetric matrix is near 1e-16 sqrt(n).
+SYMMETRY_TOLERANCE = 1e-10
 
 
 @dataclass(frozen=True)
@@ -104,9 +109,13 @@ def choose(n: int, method: str = "auto", components: int = 1) -> str:
 
 
 def is_symmetric(A: sp.spmatrix) -> bool:
-    """Whether max|A - A^T| <= SYMMETRY_TOLERANCE max|A|."""
-    scale = abs(A).max()
-    return bool(scale == 0 or abs(A - A.T).max() <= SYMMETRY_TOLERANCE * scale)
+    """Whether A is symmetric to round-off, from two products with fixed vectors (x.Ay = y.Ax for
+    every x, y when A = A^T; an unsymmetric part such as the k(T) tangent's shows at the size of its
+    entries): |x.Ay - y.Ax| <= SYMMETRY_TOLERANCE |x| |A| |y|, with |A| the largest row sum."""
+    rng = np.random.default_rng(0)  # a local generator: the test is the same on every run
+    x, y = rng.standard_normal(A.shape[0]), rng.standard_normal(A.shape[0])
+    scale = float(abs(A).sum(axis=1).max()) * np.linalg.norm(x) * np.linalg.norm(y)
+    return bool(scale == 0 or abs(x @ (A @ y) - y @ (A @ x)) <= SYMMETRY_TOLERANCE * scale)
 
 
 #: Below this size SuperLU is used even where PARDISO is installed: it is as fast there, and loading
@@ -162,14 +171,11 @@ class _Hierarchy:
                                                                                        "weighting": "local"}))
             self.kind = "smoothed aggregation"
             return
-        n_full = 3 * layout.points
-        self._embed = sp.csr_matrix((np.ones(len(layout.free)), (layout.free, np.arange(len(layout.free)))),
-                                    shape=(n_full, len(layout.free)))
-        fixed = np.setdiff1d(np.arange(n_full), layout.free)
-        diagonal = np.zeros(n_full)
-        diagonal[fixed] = np.median(A.diagonal())
-        full = (self._embed @ A @ self._embed.T + sp.diags(diagonal)).tocsr()
-        B = self._embed @ near_null
+        n_full, free = 3 * layout.points, layout.free
+        fixed = np.setdiff1d(np.arange(n_full), free)
+        full = _embed(A.tocsr(), free, fixed, float(np.median(A.diagonal())))
+        B = np.zeros((n_full, near_null.shape[1]))
+        B[free] = near_null
         self.cycle = "W"
         options = {"strength": ("symmetric", {"theta": THETA}), "smooth": ("energy", {"degree": 1})}
         if layout.edges is None:
@@ -194,16 +200,38 @@ class _Hierarchy:
         self.kind = "two-level P2/P1 + nodal smoothed aggregation"
 
     def lift(self, b: np.ndarray) -> np.ndarray:
-        return b if self.layout is None else self._embed @ b
+        if self.layout is None:
+            return b
+        out = np.zeros(3 * self.layout.points)
+        out[self.layout.free] = b
+        return out
 
     def restrict(self, x: np.ndarray) -> np.ndarray:
         return x if self.layout is None else x[self.layout.free]
 
     def preconditioner(self) -> spla.LinearOperator:
-        """One V-cycle as an operator on the (free) unknowns."""
+        """One cycle (V; W for vector problems) as an operator on the free unknowns."""
         cycle = self.ml.aspreconditioner(cycle=self.cycle)
         n = len(self.layout.free) if self.layout is not None else self.A.shape[0]
         return spla.LinearOperator((n, n), matvec=lambda r: self.restrict(cycle @ self.lift(r)), dtype=float)
+
+
+def _embed(A: sp.csr_matrix, free: np.ndarray, fixed: np.ndarray, scale: float) -> sp.csr_matrix:
+    """A (on the sorted unknowns ``free``) as rows and columns of the full numbering, with ``scale``
+    on the diagonal of each ``fixed`` row; built in CSR directly (free is increasing, so each row's
+    columns stay sorted), without the temporaries of a COO conversion or of sparse products."""
+    n = len(free) + len(fixed)
+    counts = np.ones(n, dtype=np.int64)
+    counts[free] = np.diff(A.indptr)
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(counts, out=indptr[1:])
+    dtype = np.int32 if indptr[-1] < 2**31 - 1 and n < 2**31 - 1 else np.int64
+    indices, data = np.empty(indptr[-1], dtype=dtype), np.empty(indptr[-1])
+    own = np.ones(indptr[-1], dtype=bool)
+    own[indptr[fixed]] = False
+    indices[indptr[fixed]], data[indptr[fixed]] = fixed, scale
+    indices[own], data[own] = free.astype(dtype)[A.indices], A.data
+    return sp.csr_matrix((data, indices, indptr.astype(dtype)), shape=(n, n))
 
 
 def vertex_prolongation(layout: Layout, fixed: np.ndarray) -> sp.csr_matrix:
@@ -248,7 +276,8 @@ class Prepared:
             base = self.A if self.symmetric else ((self.A + self.A.T) * 0.5).tocsr()
             with _one_thread():
                 self._amg = _Hierarchy(base, near_null, layout)
-            self.backend = f"pyamg ({self._amg.kind})"
+            self.backend = f"pyamg {'CG' if self.symmetric else f'GMRES({RESTART})'}, {self._amg.kind}" + (
+                "" if self.symmetric else " of the symmetric part")
         self.setup_seconds = time.perf_counter() - start
 
     @property
@@ -276,7 +305,7 @@ class Prepared:
         residual = float(np.linalg.norm(self.A @ x - b)) / bnorm
         seconds = time.perf_counter() - start + (0.0 if self.solves else self.setup_seconds)
         self.last_residual, self.spent = residual, seconds
-        method = self.method if self.method == "direct" else f"amg-{self.accel}"
+        method = self.method
         record = SolveRecord(method, self.n, iterations, residual, seconds,
                              tuple(h / bnorm for h in history), self.setup_seconds, self.solves > 0, self.backend)
         self.solves += 1
@@ -319,15 +348,17 @@ class Prepared:
         return np.asarray(x, dtype=float).ravel(), stalled
 
     def _watch(self, history: list[float], bnorm: float):
-        """Log every tenth iteration; stop a stalled iteration: less than 2x in the last 30, which is
-        where CG sits when it has reached its round-off floor above rtol (measured at 2e6 unknowns)."""
+        """Log every tenth iteration; stop a stalled iteration: less than 2x in the last 30 below a
+        relative residual of FLOOR, which is where CG sits when it has reached its round-off floor
+        above rtol (measured at 2e6 unknowns).  A plateau above FLOOR is not a floor (CG can leave it
+        once it has resolved the few slow modes, e.g. of a soft layer): there only maxiter stops."""
         def report(xk):
             if xk is not None:
                 self._last = xk
             k = len(history) - 1
             if k % 10 == 0:
                 log.info("AMG-%s iteration %d: relative residual %.2e", self.accel.upper(), k, history[-1] / bnorm)
-            if k >= 30 and history[-1] > 0.5 * history[-31]:
+            if k >= 30 and history[-1] > 0.5 * history[-31] and history[-1] <= FLOOR * bnorm:
                 raise _Stalled()
         return report
 
@@ -358,12 +389,6 @@ def solve(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float = 1e-
         return x, SolveRecord(f"direct (after AMG stalled at {stalled_at:.1e})", record.unknowns,
                               record.iterations, record.residual, record.seconds + spent,
                               record.history, record.setup_seconds, False, record.backend)
-
-
-def solve_spd(A: sp.spmatrix, b: np.ndarray, method: str = "auto", rtol: float = 1e-10,
-              near_null: np.ndarray | None = None, maxiter: int = 500, **options) -> tuple[np.ndarray, SolveRecord]:
-    """``solve`` for a matrix known to be symmetric positive definite (kept for callers)."""
-    return solve(A, b, method, rtol, near_null, maxiter, **options)
 
 
 class _Stalled(Exception):

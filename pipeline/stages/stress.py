@@ -15,6 +15,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.sparse as sp
 
 from .. import errors
 from ..fields import StressField, ThermalLoad
@@ -188,8 +189,9 @@ def _solve_constrained(K, f, constraints, space, spec):
     and the solve record.  The residual comes from the local-frame matrix (T is orthogonal:
     K u - f = T (K_l u_l - f_l))."""
     T = constraints.transform
-    Kl = (T.T @ K @ T).tocsr()
-    fl = T.T @ f
+    rotated = (T - sp.identity(T.shape[0], format="csr")).count_nonzero() > 0  # else skip two products
+    Kl = (T.T @ K @ T).tocsr() if rotated else K.tocsr()
+    fl = T.T @ f if rotated else f
     ul = np.zeros(len(f))
     ul[constraints.fixed] = constraints.values
     free = np.setdiff1d(np.arange(len(f)), constraints.fixed)
