@@ -130,6 +130,11 @@ class StressField:
     safety: (n_elements,) element safety factor by its part's criterion (inf where unloaded).
     nodal: part -> (point ids, (n, 6) stress [Pa]): the L2 projection within the part; point ids number
     the vertices first, then (P2) the edge midpoints, as ``displacement`` does.
+    supports: support -> {"kind", "force_N" (x, y, z) and, for normal supports (symmetry, contact),
+    "compression_N", "tension_N" (pressing and pulling totals, >= 0), "normal"; for contact also
+    "contact_area_m2", "separated_area_m2", "iterations", "least_pressing_N", "penetration_max_m"}.
+    cautions: records {"code", "where", "message", "data"} of results a reader must not miss (e.g.
+    "support_pulls": a bilateral normal support in tension).
     """
 
     displacement: np.ndarray
@@ -147,6 +152,8 @@ class StressField:
     nodal: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
     notices: tuple[str, ...] = ()
     meta: dict = field(default_factory=dict)
+    supports: dict[str, dict] = field(default_factory=dict)
+    cautions: tuple[dict, ...] = ()
 
     ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety")
 
@@ -161,7 +168,8 @@ class StressField:
     def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
         meta = {"order": self.order, "parts": self.parts, "reactions": self.reactions,
                 "equilibrium": self.equilibrium, "probes": self.probes, "solver": self.solver.to_dict(),
-                "notices": list(self.notices), "meta": self.meta, "nodal_parts": sorted(self.nodal)}
+                "notices": list(self.notices), "meta": self.meta, "nodal_parts": sorted(self.nodal),
+                "supports": self.supports, "cautions": list(self.cautions)}
         json.dumps(meta, allow_nan=False)
         arrays = {name: getattr(self, name) for name in self.ARRAYS}
         for i, part in enumerate(sorted(self.nodal)):
@@ -177,7 +185,8 @@ class StressField:
         return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS}, order=meta["order"], parts=meta["parts"],
                    reactions=meta["reactions"], equilibrium=meta["equilibrium"], probes=meta["probes"],
                    solver=SolveRecord(**solver), nodal=nodal, notices=tuple(meta["notices"]),
-                   meta=meta.get("meta", {}))
+                   meta=meta.get("meta", {}), supports=meta.get("supports", {}),
+                   cautions=tuple(meta.get("cautions", ())))
 
     def __repr__(self) -> str:
         umax = np.linalg.norm(self.displacement, axis=1).max()

@@ -22,7 +22,10 @@ from ..model.materials import Material
 from . import constitutive, fem, kernels, recovery, solvers, supports
 from .supports import Support
 
-STAGE_VERSION = 1
+STAGE_VERSION = 2
+#: a bilateral normal support is cautioned when more than this share of its normal force pulls (a few
+#: percent: below it the tension is round-off or a sliver of the surface; a choice of ours)
+TENSION_SHARE = 0.01
 
 
 @dataclass(frozen=True)
@@ -144,15 +147,17 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec.solver)
+    u, residual, record, constraints, held = _solve_supported(domain, K, f_thermal + f_mech, rows, pdofs, xyz,
+                                                              constraints, space, spec, where)
     del K
-    reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
-                 for name, pts in constraints.owner.items()}
+    reactions = constraints.reactions(residual, pdofs)
     for name, ks in springs.items():
         force = -(ks @ u)
         reactions[name] = [float(force[pdofs[:, i]].sum()) for i in range(3)]
     applied = [float(f_mech[pdofs[:, i]].sum()) for i in range(3)]
     equilibrium = _equilibrium(reactions, applied, float(np.abs(f_thermal + f_mech).max(initial=0.0)))
+    support_records, cautions = _support_records(domain, space, spec.supports, constraints, residual, pdofs, held,
+                                                 reactions, where)
 
     parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order, load)
     probes = _probes(domain, spec.order, u, elements["von_mises"], spec.probes, where)
@@ -160,6 +165,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
+        supports=support_records, cautions=tuple(cautions),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
               "stress_order": "xx, yy, zz, yz, xz, xy"},
     )
@@ -179,6 +185,54 @@ def _solve_constrained(K, f, constraints, space, method):
     modes = rigid_body_modes(space.doflocs)
     ul[free], record = solvers.solve_spd(Kl[free][:, free], rhs, method=method, near_null=(T.T @ modes)[free])
     return T @ ul, T @ (Kl @ ul - fl), record
+
+
+def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, where):
+    """The constrained solve, repeated by the contact active set when a support is of kind contact.
+    Returns u, residual, solve record, the final constraints and the contact records."""
+    surfaces = supports.normal_surfaces(domain, space, spec.supports, ("contact",), where)
+    if not surfaces:
+        return (*_solve_constrained(K, f, constraints, space, spec.solver), constraints, {})
+    springs = [space.facet_dofs(domain.surfaces[n]) for n, s in spec.supports.items() if s.kind == "spring"]
+    spring_points = np.concatenate(springs) if springs else np.zeros(0, dtype=np.int64)
+
+    def motion(current):
+        try:
+            supports.free_motions(domain, current, xyz, spring_points, where)
+        except errors.PhysicsError as exc:
+            raise errors.PhysicsError([p + " (the contact supports lift off where they would pull, and what is left "
+                                       "does not hold the body)" for p in exc.problems]) from None
+
+    return supports.contact_solve(lambda c: _solve_constrained(K, f, c, space, spec.solver), rows, pdofs, len(f),
+                                  surfaces, motion, where)
+
+
+def _support_records(domain, space, given, constraints, residual, pdofs, held, reactions, where):
+    """Per-support records (kind, force [N], normal supports' pressing and pulling totals [N], contact and
+    separated area [m^2]) and caution records for bilateral normal supports that pull on the body."""
+    records = {name: {"kind": s.kind, "force_N": reactions.get(name, [0.0, 0.0, 0.0])} for name, s in given.items()}
+    own = constraints.point_reactions(residual, pdofs)
+    cautions = []
+    for c in supports.normal_surfaces(domain, space, given, supports.NORMAL_KINDS, where):
+        pressed = supports.pressing(c, *own.get(c.name, (np.zeros(0, dtype=np.int64), np.zeros((0, 3)))))
+        rec = records[c.name] | supports.normal_forces(pressed) | {"normal": c.normal.tolist()}
+        if c.name in held:
+            contact, separated = supports.contact_areas(domain, c, held[c.name]["held"])
+            rec |= {"contact_area_m2": contact, "separated_area_m2": separated,
+                    "iterations": held[c.name]["iterations"],
+                    "least_pressing_N": float(np.min(held[c.name]["pressing_N"][np.isin(c.points, held[c.name]["held"])],
+                                                     initial=np.inf)),
+                    "penetration_max_m": float(held[c.name]["penetration_m"].max(initial=0.0))}
+        elif not given[c.name].mirror and rec["tension_N"] > TENSION_SHARE * (rec["tension_N"] + rec["compression_N"]):
+            cautions.append({
+                "code": "support_pulls", "where": f"{where}.supports.{c.name}",
+                "message": (f"support {c.name} ({given[c.name].kind}) pulls the body with {rec['tension_N']:.4g} N "
+                            f"in total (it presses with {rec['compression_N']:.4g} N elsewhere); a surface resting "
+                            "on a foundation cannot pull: use kind = \"contact\", which lets it lift off (or, if "
+                            "it is a plane of symmetry of the model, say so with mirror = true)"),
+                "data": {"support": c.name, "tension_N": rec["tension_N"], "compression_N": rec["compression_N"]}})
+        records[c.name] = rec
+    return records, cautions
 
 
 def rigid_body_modes(x: np.ndarray) -> np.ndarray:
