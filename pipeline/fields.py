@@ -126,7 +126,11 @@ class StressField:
     largest first.  parts: part -> figures (peak von Mises [Pa] with location [m], principal extremes,
     safety factor and its criterion).  reactions: support -> force [N] (x, y, z).
     equilibrium: sum of reactions and applied loads [N] and its size relative to the largest force.
-    probes: name -> {"displacement_m", "von_mises_Pa"}.  solver: how the system was solved.
+    probes: name -> {"part", "displacement_m", "temperature_K", "stress_Pa" (xx, yy, zz, xy, yz, xz),
+    "principal_Pa" (largest first), "von_mises_Pa"}: the recovered field of the part the probe lies in.
+    lines: name -> one such record per point along the line, with "distance_m", "x_m", "outside".
+    features: singular features found, counted by kind (``stages.features``).
+    solver: how the system was solved.
     safety: (n_elements,) element safety factor by its part's criterion (inf where unloaded).
     nodal: part -> (point ids, (n, 6) stress [Pa]): the L2 projection within the part; point ids number
     the vertices first, then (P2) the edge midpoints, as ``displacement`` does.
@@ -154,6 +158,8 @@ class StressField:
     meta: dict = field(default_factory=dict)
     supports: dict[str, dict] = field(default_factory=dict)
     cautions: tuple[dict, ...] = ()
+    lines: dict[str, list[dict]] = field(default_factory=dict)
+    features: dict[str, int] = field(default_factory=dict)
 
     ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety")
 
@@ -169,7 +175,8 @@ class StressField:
         meta = {"order": self.order, "parts": self.parts, "reactions": self.reactions,
                 "equilibrium": self.equilibrium, "probes": self.probes, "solver": self.solver.to_dict(),
                 "notices": list(self.notices), "meta": self.meta, "nodal_parts": sorted(self.nodal),
-                "supports": self.supports, "cautions": list(self.cautions)}
+                "supports": self.supports, "cautions": list(self.cautions), "lines": self.lines,
+                "features": self.features}
         json.dumps(meta, allow_nan=False)
         arrays = {name: getattr(self, name) for name in self.ARRAYS}
         for i, part in enumerate(sorted(self.nodal)):
@@ -186,7 +193,8 @@ class StressField:
                    reactions=meta["reactions"], equilibrium=meta["equilibrium"], probes=meta["probes"],
                    solver=SolveRecord(**solver), nodal=nodal, notices=tuple(meta["notices"]),
                    meta=meta.get("meta", {}), supports=meta.get("supports", {}),
-                   cautions=tuple(meta.get("cautions", ())))
+                   cautions=tuple(meta.get("cautions", ())), lines=meta.get("lines", {}),
+                   features=meta.get("features", {}))
 
     def __repr__(self) -> str:
         umax = np.linalg.norm(self.displacement, axis=1).max()

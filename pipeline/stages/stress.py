@@ -19,7 +19,7 @@ import numpy as np
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
-from . import constitutive, fem, kernels, recovery, solvers, supports
+from . import constitutive, features, fem, kernels, recovery, solvers, supports
 from .supports import Support
 
 STAGE_VERSION = 2
@@ -36,7 +36,8 @@ class StressSpec:
     not a surface).  pressure: surface -> Pa (positive pushes on the surface).  force: surface ->
     (Fx, Fy, Fz) [N], spread evenly over its area.  gravity: acceleration (gx, gy, gz) [m/s^2] acting
     on each part's density.  body_force: part -> function of x (3, ...) [m] giving (3, ...) [N/m^3].
-    probes: name -> (x, y, z) [m].  order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
+    probes: name -> (x, y, z) [m].  lines: name -> (start (x, y, z) [m], end [m], number of points >= 2).
+    order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
     memory_limit: bytes the stage may use (default: what is available); checked before assembly.
     """
 
@@ -50,6 +51,7 @@ class StressSpec:
     order: int = 2
     solver: str = "auto"
     memory_limit: float | None = None
+    lines: Mapping[str, tuple] = field(default_factory=dict)
 
 
 def check(domain, spec: StressSpec, where: str = "stress") -> None:
@@ -86,6 +88,7 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         if m.kind == "isotropic" and not -1 < m.poisson_ratio[0] < 0.5:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
     fem.check_probes(domain, spec.probes, where, problems)
+    problems += _line_problems(spec.lines, where)
     if spec.order in fem.ORDERS and not problems:
         try:
             solvers.check_memory(3 * fem.unknowns(domain, spec.order), spec.order, 3, spec.solver, spec.memory_limit,
@@ -159,15 +162,19 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     support_records, cautions = _support_records(domain, space, spec.supports, constraints, residual, pdofs, held,
                                                  reactions, where)
 
-    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order, load)
-    probes = _probes(domain, spec.order, u, elements["von_mises"], spec.probes, where)
+    found = features.find(domain, spec.supports)
+    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order, load, found)
+    probes = _probes(domain, spec.order, u, nodal, load, spec.probes, where)
+    lines = _lines(domain, spec.order, u, nodal, load, spec.lines)
     return StressField(
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
-        supports=support_records, cautions=tuple(cautions),
+        supports=support_records, cautions=tuple(cautions) + _singular_cautions(parts, where), lines=lines,
+        features=found.counts(),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
-              "stress_order": "xx, yy, zz, yz, xz, xy"},
+              "stress_order": "xx, yy, zz, yz, xz, xy",
+              "recovery": "L2 projection within each part (nodal peaks; quadrature maximum beside)"},
     )
 
 
@@ -256,11 +263,73 @@ def _equilibrium(reactions: dict, applied: list[float], nodal_scale: float) -> d
             "relative": float(np.linalg.norm(total) / scale) if scale > 0 else 0.0}
 
 
-def _probes(domain, order, u, vm, probes, where) -> dict[str, dict]:
+def _probes(domain, order, u, nodal, load, probes, where) -> dict[str, dict]:
+    """Probe values from the recovered field (``recovery.sample``)."""
     if not probes:
         return {}
     names, points, cells = fem.probe_points(domain, probes, where)
-    dofs, phi = fem.probe_weights(domain, order, points, cells)
-    disp = np.einsum("ip,ipc->cp", phi, u.reshape(-1, 3)[dofs])
-    return {n: {"displacement_m": disp[:, i].tolist(), "von_mises_Pa": float(vm[cells[i]])}
-            for i, n in enumerate(names)}
+    values = recovery.sample(domain, order, nodal, load, u, points, cells, _part_names(domain))
+    return dict(zip(names, values))
+
+
+def _part_names(domain) -> np.ndarray:
+    return np.array(sorted(domain.parts), dtype=object)[domain.part_ids()]
+
+
+def _line_problems(lines, where) -> list[str]:
+    problems = []
+    for name, line in lines.items():
+        try:
+            start, end, count = np.asarray(line[0], float), np.asarray(line[1], float), line[2]
+            ok = start.shape == end.shape == (3,) and isinstance(count, (int, np.integer)) and count >= 2
+        except (TypeError, ValueError, IndexError):
+            ok = False
+        if not ok:
+            problems.append(f"{where}.lines.{name}: give start and end as (x, y, z) and points as a whole number >= 2")
+        elif np.allclose(start, end):
+            problems.append(f"{where}.lines.{name}: start and end are the same point")
+    return problems
+
+
+def _lines(domain, order, u, nodal, load, lines) -> dict[str, list[dict]]:
+    """Values along each line at equally spaced points; a point outside the mesh (a cavity, beyond the
+    body) is listed with its position only ("outside": true)."""
+    out = {}
+    finder = domain.mesh.element_finder()
+    names = _part_names(domain)
+    for name, (start, end, count) in lines.items():
+        s = np.linspace(0.0, 1.0, int(count))
+        x = np.asarray(start, float)[:, None] * (1 - s) + np.asarray(end, float)[:, None] * s
+        length = float(np.linalg.norm(np.subtract(end, start)))
+        cells = np.full(len(s), -1)
+        for i in range(len(s)):
+            try:
+                cells[i] = finder(*x[:, i : i + 1])[0]
+            except ValueError:
+                pass
+        inside = np.flatnonzero(cells >= 0)
+        values = dict(zip(inside.tolist(), recovery.sample(domain, order, nodal, load, u, x[:, inside],
+                                                           cells[inside], names) if len(inside) else []))
+        out[name] = [{"distance_m": float(s[i] * length), "x_m": x[:, i].tolist()}
+                     | (values[i] | {"outside": False} if i in values else {"outside": True}) for i in range(len(s))]
+    return out
+
+
+def _singular_cautions(parts: dict, where: str) -> tuple[dict, ...]:
+    """A caution record for each part whose judged peak lies at a singular feature."""
+    out = []
+    for part, f in parts.items():
+        judged = f.get("utilisation") or f["von_mises"]
+        near = judged["near"]
+        if near is None:
+            continue
+        quantity = "utilisation" if "utilisation" in f else "von Mises"
+        out.append({"code": "singular_peak", "where": f"{where}.parts.{part}",
+                    "message": (f"the peak {quantity} of {part} lies {near['distance_m'] * 1e3:.3g} mm from a "
+                                f"{near['code'].replace('_', ' ')} ({near['owner']}), where the elastic stress is "
+                                "singular and grows with refinement; the safety factor uses the peak away from such "
+                                "features; judge the feature itself by its real shape (fillet radius) or by a "
+                                "convergence study"),
+                    "data": {"part": part, "feature": near["code"], "owner": near["owner"],
+                             "distance_m": near["distance_m"], "peak": judged["peak"], "away": judged["away"]}})
+    return tuple(out)
