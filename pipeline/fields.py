@@ -133,7 +133,10 @@ class StressField:
     solver: how the system was solved.
     safety: (n_elements,) element safety factor by its part's criterion (inf where unloaded).
     nodal: part -> (point ids, (n, 6) stress [Pa]): the L2 projection within the part; point ids number
-    the vertices first, then (P2) the edge midpoints, as ``displacement`` does.
+    the vertices first, then (P2) the edge midpoints, as ``displacement`` does.  nodal_safety: part ->
+    (n,) safety factor at those points by the part's criterion (inf unloaded, NaN without a strength).
+    temperature: mapped temperature at the displacement points [K]; reference: stress-free
+    temperature per element [K].
     supports: support -> {"kind", "force_N" (x, y, z) and, for normal supports (symmetry, contact),
     "compression_N", "tension_N" (pressing and pulling totals, >= 0), "normal"; for contact also
     "contact_area_m2", "separated_area_m2", "iterations", "least_pressing_N", "penetration_max_m"}.
@@ -160,8 +163,11 @@ class StressField:
     cautions: tuple[dict, ...] = ()
     lines: dict[str, list[dict]] = field(default_factory=dict)
     features: dict[str, int] = field(default_factory=dict)
+    temperature: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    reference: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    nodal_safety: dict[str, np.ndarray] = field(default_factory=dict)
 
-    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety")
+    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety", "temperature", "reference")
 
     def nodal_stress(self, part: str, point: int) -> np.ndarray:
         """Projected stress (6,) [Pa] of ``part`` at a point (vertex id, or P2 edge point)."""
@@ -181,6 +187,8 @@ class StressField:
         arrays = {name: getattr(self, name) for name in self.ARRAYS}
         for i, part in enumerate(sorted(self.nodal)):
             arrays[f"nodal_points_{i}"], arrays[f"nodal_stress_{i}"] = self.nodal[part]
+            if part in self.nodal_safety:
+                arrays[f"nodal_safety_{i}"] = self.nodal_safety[part]
         return arrays, meta
 
     @classmethod
@@ -189,7 +197,10 @@ class StressField:
         solver["history"] = tuple(solver.get("history", ()))
         nodal = {p: (np.asarray(arrays[f"nodal_points_{i}"]), np.asarray(arrays[f"nodal_stress_{i}"]))
                  for i, p in enumerate(meta.get("nodal_parts", []))}
-        return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS}, order=meta["order"], parts=meta["parts"],
+        safety = {p: np.asarray(arrays[f"nodal_safety_{i}"]) for i, p in enumerate(meta.get("nodal_parts", []))
+                  if f"nodal_safety_{i}" in arrays}
+        return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS if n in arrays}, order=meta["order"],
+                   parts=meta["parts"], nodal_safety=safety,
                    reactions=meta["reactions"], equilibrium=meta["equilibrium"], probes=meta["probes"],
                    solver=SolveRecord(**solver), nodal=nodal, notices=tuple(meta["notices"]),
                    meta=meta.get("meta", {}), supports=meta.get("supports", {}),

@@ -44,6 +44,12 @@ class MapSpec:
     order: int = 1
 
 
+def check(domain, spec: MapSpec, where: str = "map") -> None:
+    """Raise one ``InputError`` listing every problem of ``spec`` on ``domain`` (the stress-free
+    temperatures: given, >= 0 K, for parts that exist)."""
+    _reference(domain, spec, where)
+
+
 def _reference(domain, spec: MapSpec, where: str) -> np.ndarray:
     problems = [errors.unknown_name("part", p, domain.parts, f"{where}.reference_by_part")
                 for p in spec.reference_by_part if p not in domain.parts]

@@ -69,12 +69,13 @@ def nodal_stress(domain, model: PartModel, sigma: np.ndarray, order: int, ref) -
 
 
 def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int, load=None, features=None):
-    """Per-part figures, per-element means (stress, von_mises, tresca, principal, safety) and the
-    recovered nodal stresses per part; ``features`` (``features.Features``) flags singular peaks."""
+    """Per-part figures, per-element means (stress, von_mises, tresca, principal, safety), the
+    recovered nodal stresses per part and the safety factor at those nodes; ``features``
+    (``features.Features``) flags singular peaks."""
     nel = len(domain.tetrahedra)
     ref = kernels.reference(order, kernels.degree_mass(order))
     elements = {"stress": np.zeros((nel, 6)), "safety": np.full(nel, np.inf)}
-    parts, nodal_by_part = {}, {}
+    parts, nodal_by_part, safety = {}, {}, {}
     xyz = fem.space(domain, order).doflocs.T
     for part, model in models.items():
         sigma = stress_at_points(domain, model, u, order, load, ref)
@@ -84,6 +85,9 @@ def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int, loa
         parts[part] = figures(model.material, nodal, xyz[dofs], sizes, np.moveaxis(sigma, 1, 0).reshape(6, -1),
                               features, part)
         nodal_by_part[part] = (dofs, nodal.T)
+        use_nodes = utilisation(model.material, nodal)
+        safety[part] = np.full(len(dofs), np.nan) if use_nodes is None else \
+            np.divide(1.0, use_nodes, out=np.full(len(dofs), np.inf), where=use_nodes > 0)
         use = utilisation(model.material, elements["stress"][model.ids].T)
         if use is None:
             elements["safety"][model.ids] = np.nan
@@ -94,7 +98,7 @@ def recover(domain, models: dict[str, PartModel], u: np.ndarray, order: int, loa
     elements["von_mises"] = constitutive.von_mises(s)
     elements["principal"] = constitutive.principal(s)
     elements["tresca"] = elements["principal"][:, 0] - elements["principal"][:, 2]
-    return parts, elements, nodal_by_part
+    return parts, elements, nodal_by_part, safety
 
 
 def criterion(material) -> str | None:
@@ -169,6 +173,18 @@ def figures(material, nodal: np.ndarray, where: np.ndarray, sizes: np.ndarray, s
         sf = 1.0 / judged["away"] if judged["away"] else None
         uses = "peak away from singular features"
     return out | {"safety_factor": sf, "safety_factor_peak": peak_sf, "verdict_uses": uses}
+
+
+def at_points(domain, order: int, load) -> np.ndarray:
+    """The load's temperature at the displacement points of P``order`` [K]."""
+    t = np.asarray(load.temperature, float)
+    nv = domain.mesh.nvertices
+    if load.order == order:
+        return t.copy()
+    if order == 1:
+        return t[:nv].copy()
+    e = domain.mesh.edges
+    return np.concatenate([t[:nv], 0.5 * (t[e[0]] + t[e[1]])])
 
 
 def sample(domain, order: int, nodal: dict, load, u: np.ndarray, points: np.ndarray, cells: np.ndarray,

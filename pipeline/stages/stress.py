@@ -166,7 +166,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
                                                  reactions, where)
 
     found = features.find(domain, spec.supports)
-    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order, load, found)
+    parts, elements, nodal, nodal_safety = recovery.recover(domain, per_part, u, spec.order, load, found)
     probes = _probes(domain, spec.order, u, nodal, load, spec.probes, where)
     lines = _lines(domain, spec.order, u, nodal, load, spec.lines)
     return StressField(
@@ -174,7 +174,9 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
         supports=support_records, cautions=tuple(cautions) + _singular_cautions(parts, where), lines=lines,
-        features=found.counts(),
+        features=found.counts(), nodal_safety=nodal_safety,
+        temperature=recovery.at_points(domain, spec.order, load) if load is not None else np.zeros(0),
+        reference=np.asarray(load.reference, float) if load is not None else np.zeros(0),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
               "stress_order": "xx, yy, zz, yz, xz, xy",
               "recovery": "L2 projection within each part (nodal peaks; quadrature maximum beside)"},
@@ -319,20 +321,22 @@ def _lines(domain, order, u, nodal, load, lines) -> dict[str, list[dict]]:
 
 
 def _singular_cautions(parts: dict, where: str) -> tuple[dict, ...]:
-    """A caution record for each part whose judged peak lies at a singular feature."""
+    """A caution record for each part with a peak (von Mises, largest principal, utilisation) at a
+    singular feature; data names the flagged quantities and the feature of the first."""
     out = []
     for part, f in parts.items():
-        judged = f.get("utilisation") or f["von_mises"]
-        near = judged["near"]
-        if near is None:
+        flagged = [q for q in ("von_mises", "principal_max", "utilisation") if q in f and f[q]["near"] is not None]
+        if not flagged:
             continue
-        quantity = "utilisation" if "utilisation" in f else "von Mises"
+        near = f[flagged[0]]["near"]
+        uses = ("the safety factor uses the peak away from such features" if "utilisation" in flagged else
+                "the safety factor's own peak is away from them")
         out.append({"code": "singular_peak", "where": f"{where}.parts.{part}",
-                    "message": (f"the peak {quantity} of {part} lies {near['distance_m'] * 1e3:.3g} mm from a "
-                                f"{near['code'].replace('_', ' ')} ({near['owner']}), where the elastic stress is "
-                                "singular and grows with refinement; the safety factor uses the peak away from such "
-                                "features; judge the feature itself by its real shape (fillet radius) or by a "
+                    "message": (f"the peak {', '.join(q.replace('_', ' ') for q in flagged)} of {part} lies "
+                                f"{near['distance_m'] * 1e3:.3g} mm from a {near['code'].replace('_', ' ')} "
+                                f"({near['owner']}), where the elastic stress is singular and grows with refinement; "
+                                f"{uses}; judge the feature itself by its real shape (fillet radius) or by a "
                                 "convergence study"),
-                    "data": {"part": part, "feature": near["code"], "owner": near["owner"],
-                             "distance_m": near["distance_m"], "peak": judged["peak"], "away": judged["away"]}})
+                    "data": {"part": part, "quantities": [q.removesuffix("_max") for q in flagged],
+                             "feature": near["code"], "owner": near["owner"], "distance_m": near["distance_m"]}})
     return tuple(out)
