@@ -144,7 +144,13 @@ class OutputSection(Strict):
     figures: bool = Field(default=True, description="PNG figures (pyvista off-screen, matplotlib)")
     report: bool = Field(default=True, description="report.html with the figures embedded")
     required_safety_factor: Annotated[float, Field(gt=0)] = Field(
-        default=1.5, description="pass/fail threshold in the report (1.5 against yield is common practice)")
+        default=1.5, description="pass/fail threshold of the stress verdict (1.5 against yield is common practice)")
+
+
+class LineSection(Strict):
+    start: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(description="first point of a straight line along which the stress stage reports temperature, displacement and stress (as for probes); points outside the mesh are listed with `outside = true`")
+    end: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(description="last point")
+    points: Annotated[int, Field(ge=2)] = Field(default=50, description="equally spaced points, ends included")
 
 
 class WorkflowBase(Strict):
@@ -152,10 +158,13 @@ class WorkflowBase(Strict):
 
     title: str = Field(default="", description="shown in the summary and the report")
     mesh: MeshSection
-    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]")
+    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]; a brittle orthotropic material with `tensile_strength_axes = [X, Y, Z]` (and optionally `shear_strength_axes = [S_xy, S_xz, S_yz]`) [Pa] is judged in its material axes (maximum stress per axis)")
     parts: dict[str, PartSection]
     probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(
-        default_factory=dict, description="named points (x, y, z) whose values every stage reports")
+        default_factory=dict, description="named points (x, y, z) whose values every stage reports (stress: the part it lies in, displacement, temperature, the full stress tensor xx, yy, zz, xy, yz, xz, principal stresses and von Mises of the recovered field)")
+    lines: dict[str, LineSection] = Field(default_factory=dict, description="a straight line; the stress stage "
+                                          "reports temperature, displacement and stress (as for probes) at equally spaced points along it; "
+                                          "points outside the mesh are listed with `outside = true`")
     output: OutputSection = OutputSection()
     # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
     # is in no store key

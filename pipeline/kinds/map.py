@@ -30,8 +30,11 @@ class MapStage(Strict):
     file_unit: LengthUnit = Field(default="m", description="length unit of the file's coordinates")
     temperature_unit: Literal["K", "degC"] = Field(default="K", description="unit of the file's temperatures")
     mesh: MeshSection | None = Field(default=None, description="a different structural mesh (cross-mesh mapping); default: the workflow's mesh")
-    reference: Temperature = Field(default=293.15, description="stress-free temperature")
-    reference_by_part: dict[str, Temperature] = Field(default_factory=dict, description="stress-free temperature of one part")
+    reference: Temperature | None = Field(default=None, description="stress-free temperature (required): where the "
+                                          "parts carry no thermal stress. For parts bonded at T_b (solder, sinter, cured adhesive) give T_b: "
+                                          "both joined parts are stress-free there, and the operating state is a load step from T_b "
+                                          "(docs/theory.md, \"Stress-free temperature and bonding\")")
+    reference_by_part: dict[str, Temperature] = Field(default_factory=dict, description="a part stress-free at its own temperature: a built-in misfit, not a bonding temperature")
     tolerance: PositiveLength | None = Field(default=None, description="distance outside the source still "
                                              "accepted (nearest value, counted); default half the source's median edge")
     order: Literal[1, 2] = Field(default=1, description="order of a cross-mesh or external field (same mesh keeps the heat stage's order)")
@@ -51,6 +54,7 @@ def plan(ctx: base.Context, name: str, stage: MapStage, where: str) -> base.Stag
 
     target = ctx.domain_of(stage.mesh, f"stages.{name}.mesh") if stage.mesh else ctx.domain
     spec = mapping.MapSpec(stage.reference, stage.reference_by_part, stage.tolerance, stage.order)
+    mapping.check(target, spec, where)
     options = stage.model_dump(exclude={"source", "file", "mesh"})
     problems = [errors.unknown_name("part", p, target.parts, f"{where}.reference_by_part")
                 for p in stage.reference_by_part if p not in target.parts]
