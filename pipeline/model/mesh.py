@@ -432,7 +432,7 @@ def _touching(mesh, points, part_of, ordered) -> dict[tuple[str, str], Touching]
     size = np.max(np.linalg.norm(tri - centres[:, None], axis=2), axis=1)  # centroid to farthest corner
     tree = cKDTree(centres)
     p, q = [], []
-    for i, near in enumerate(tree.query_ball_point(centres, size + TOUCH_TOLERANCE * size)):
+    for i, near in enumerate(tree.query_ball_point(centres, (1 + TOUCH_TOLERANCE) * size.max())):
         near = np.asarray(near, dtype=np.int64)
         near = near[owner[near] != owner[i]]
         p.append(np.full(len(near), i))
@@ -612,8 +612,9 @@ def join(domain: Domain, joints: dict[str, Joint], where: str = "interfaces") ->
             problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' are meshed apart (no shared nodes); a contact "
                             "conductance needs a conforming interface (fragment the volumes in the mesher) or "
                             "choose kind = 'tie' or 'insulated'")
-        elif joint.kind == "tie":
-            ties[name] = Tie(pair, found.facets)
+        elif joint.kind == "tie":  # the first part named follows the second
+            first = tuple(joint.parts) == pair
+            ties[name] = Tie(tuple(joint.parts), found.facets if first else found.facets[::-1])
     if problems:
         raise errors.InputError(problems)
     out = split_interfaces(domain, split) if split else domain

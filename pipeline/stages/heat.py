@@ -255,6 +255,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
         owner[name] = dofs
         T[dofs] = value(space.doflocs[:, dofs]) if callable(value) else value
         fixed = np.union1d(fixed, dofs)
+    problem.tie = problem.tie.release(fixed)  # a fixed temperature prevails over a tie
     free = np.setdiff1d(np.arange(problem.n), np.union1d(fixed, problem.tie.tied))
     assembled = time.perf_counter() - start
     T, record, newton, outside = _newton(problem, T, free, spec, where)
@@ -281,8 +282,9 @@ def solve(domain, spec: HeatSpec, where: str = "heat") -> TemperatureField:
         temperature=T, order=spec.order, vertices=int(domain.mesh.nvertices), parts=parts, balance=tuple(balance),
         probes=_probe_values(domain, spec.order, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
-        interfaces=tuple(interfaces), cavities=tuple(cavities), domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
-                                              "assembly_seconds": assembled, "newton": newton},
+        interfaces=tuple(interfaces), cavities=tuple(cavities), domain_hash=domain.source_hash,
+        meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
+              "newton": newton},
     )
 
 
@@ -430,7 +432,7 @@ class _Problem:
         for _, kind, facets, c in self.losses:
             loss, _ = _surface_loss(kind, c, facets.values(T))
             r[: self.space.N] += facets.load(loss)
-        return r if self.tie.empty else self.tie.P.T @ r
+        return self.tie.load(r)
 
     def tangent(self, T):
         if self._constant is not None:
@@ -448,7 +450,7 @@ class _Problem:
                 _, slope = _surface_loss(kind, c, facets.values(T))
                 facets.mass(slope, films)
             J = J + self._pad(films.matrix())
-        return J.tocsr() if self.tie.empty else self.tie.reduce(J)
+        return self.tie.reduce(J)
 
 
 def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):

@@ -3,7 +3,7 @@
 Weak form: find u with the supports' constraints such that for every admissible v
     int eps(v) : C eps(u) dV + sum_spring int k u.v dA
         = int eps(v) : C alpha (T - T_ref) dV + int b.v dV + sum_pressure int -p n.v dA + sum_force int t.v dA
-Parts that share nodes are bonded.  C and alpha are constant per part (in model coordinates, from the
+Parts that share nodes are bonded; split interfaces and ties keep their sides together (``ties``).  C and alpha are constant per part (in model coordinates, from the
 part's material axes), so the thermal mismatch at a bonded interface is never averaged away.
 Units: u [m], sigma and p [Pa], k [N/m^3], b [N/m^3], forces [N], T [K].
 """
@@ -19,7 +19,7 @@ import numpy as np
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
-from . import constitutive, fem, kernels, recovery, solvers, supports
+from . import constitutive, fem, kernels, recovery, solvers, supports, ties
 from .supports import Support
 
 STAGE_VERSION = 1
@@ -103,6 +103,8 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     space, geom = fem.space(domain, spec.order), fem.geometry(domain)
     n = 3 * space.N
     rows, pdofs, xyz = supports.gather(domain, space, spec.supports, where)
+    tie = ties.continuity(domain, space, domain.contacts, where)  # split interfaces and ties move together
+    rows, tie = ties.move_rows(tie, rows, {n for n, s in spec.supports.items() if s.kind == "minimal"}, where)
     spring_points = [space.facet_dofs(domain.surfaces[name]) for name, s in spec.supports.items() if s.kind == "spring"]
     supports.free_motions(domain, rows, xyz, np.concatenate(spring_points) if spring_points else
                           np.zeros(0, dtype=np.int64), where)
@@ -144,7 +146,9 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec.solver)
+    u, residual, record = _solve_constrained(tie.reduce(K), tie.load(f_thermal + f_mech),
+                                             ties.with_tied(constraints, tie), space, spec.solver)
+    u = tie.expand(u)
     del K
     reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
                  for name, pts in constraints.owner.items()}

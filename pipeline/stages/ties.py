@@ -113,13 +113,29 @@ class Continuity:
         tied = (3 * self.tied[:, None] + np.arange(3)).ravel()
         return Continuity(sp.kron(self.P, sp.identity(3), format="csr"), tied)
 
+    def release(self, dofs: np.ndarray) -> "Continuity":
+        """The map with ``dofs`` no longer tied (each its own unknown again): for dofs that a boundary
+        condition prescribes, which then prevails over the tie (the usual treatment of tied nodes on a
+        Dirichlet boundary)."""
+        dofs = np.intersect1d(dofs, self.tied)
+        if not len(dofs):
+            return self
+        mask = np.zeros(self.P.shape[0])
+        mask[dofs] = 1.0
+        P = sp.diags(1.0 - mask) @ self.P + sp.diags(mask)
+        return Continuity(P.tocsr(), np.setdiff1d(self.tied, dofs))
+
     def reduce(self, K: sp.spmatrix) -> sp.csr_matrix:
-        """P^T K P."""
-        return (self.P.T @ K @ self.P).tocsr()
+        """P^T K P (K itself without ties)."""
+        return K.tocsr() if self.empty else (self.P.T @ K @ self.P).tocsr()
+
+    def load(self, f: np.ndarray) -> np.ndarray:
+        """P^T f: loads on tied dofs passed on to the dofs they follow."""
+        return f if self.empty else self.P.T @ f
 
     def expand(self, w: np.ndarray) -> np.ndarray:
         """All values from the reduced ones (tied dofs recomputed)."""
-        return self.P @ w
+        return w if self.empty else self.P @ w
 
 
 def continuity(domain, space: kernels.Space, contacts=(), where: str = "interfaces") -> Continuity:
@@ -134,7 +150,7 @@ def continuity(domain, space: kernels.Space, contacts=(), where: str = "interfac
         cols.append(b)
         vals.append(np.ones(len(b)))
     for name, tie in domain.ties.items():
-        r, c, v = _node_to_surface(domain, space, tie, f"{where}.{name}")
+        r, c, v = _mortar(domain, space, tie, f"{where}.{name}")
         rows.append(r)
         cols.append(c)
         vals.append(v)
@@ -151,47 +167,99 @@ def continuity(domain, space: kernels.Space, contacts=(), where: str = "interfac
     return Continuity(P, tied)
 
 
-def _node_to_surface(domain, space: kernels.Space, tie, where: str):
-    """(tied dof, reference dof, weight) triplets: each dof on the tied faces follows the reference
-    element's field at its projection on the nearest reference face."""
+def _mortar(domain, space: kernels.Space, tie, where: str):
+    """(tied dof, reference dof, weight) triplets of the mortar tie u_s = D^-1 M u_m, where
+    D_ij = int N_i N_j and M_ij = int N_i N^m_j over the tied side's faces (the reference side's
+    shape functions N^m on its faces, projected).  The overlap of each pair of faces is clipped
+    (Sutherland-Hodgman) and integrated exactly for the polynomial product (degree 2p)."""
+    from scipy.sparse.linalg import splu
     from scipy.spatial import cKDTree
 
-    mesh = domain.mesh
-    slaves = space.facet_dofs(tie.facets[0])
-    x = space.doflocs[:, slaves].T
-    ref = tie.facets[1]
-    tri = domain.points[mesh.facets[:, ref].T]
-    centres = tri.mean(axis=1)
-    size = np.max(np.linalg.norm(tri - centres[:, None], axis=2), axis=1)
-    tree = cKDTree(centres)
-    best = np.full(len(x), -1)
-    outside = np.full(len(x), np.inf)
-    proj = np.zeros_like(x)
-    e1, e2 = tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]
-    normal = np.cross(e1, e2)
-    normal /= np.linalg.norm(normal, axis=1, keepdims=True)
-    for i, near in enumerate(tree.query_ball_point(x, 1.01 * size.max())):
-        near = np.asarray(near, dtype=np.int64)
-        if not len(near):
-            continue
-        d = x[i] - tri[near, 0]
-        onplane = x[i] - np.einsum("n,nd->nd", np.einsum("nd,nd->n", d, normal[near]), normal[near])
-        lam = _barycentric(onplane - tri[near, 0], e1[near], e2[near])
-        worst = -np.min(lam, axis=1)  # how far outside the triangle (0 inside)
-        k = int(np.argmin(worst))
-        if worst[k] < outside[i]:
-            best[i], outside[i], proj[i] = near[k], worst[k], onplane[k]
-    lost = np.flatnonzero(outside > 1e-6)
-    if len(lost):
-        raise errors.InputError(f"{where}: {len(lost)} nodes of part '{tie.parts[0]}' on the tie lie on no face of "
-                                f"part '{tie.parts[1]}' (first at {x[lost[0]].tolist()} m); tie the parts the other "
-                                "way round (the side with the smaller faces first) or check the touching area")
-    cells = mesh.f2t[0, ref[best]]
-    dofs, phi = fem.probe_weights(domain, space.order, proj.T, cells)
-    phi[np.abs(phi) < 1e-12] = 0.0  # basis functions off the face vanish there
-    rows = np.repeat(slaves[None, :], dofs.shape[0], axis=0)
-    keep = phi != 0
-    return rows[keep], dofs[keep], phi[keep]
+    mesh, order = domain.mesh, space.order
+    geom = fem.geometry(domain)
+    slave, master = tie.facets
+    slave_dofs = space.facet_dofs(slave)
+    ts, tm = (domain.points[mesh.facets[:, f].T] for f in (slave, master))  # (k, 3, 3)
+    cs, cm = ts.mean(axis=1), tm.mean(axis=1)
+    rs = np.max(np.linalg.norm(ts - cs[:, None], axis=2), axis=1)
+    rm = np.max(np.linalg.norm(tm - cm[:, None], axis=2), axis=1)
+    normal_m = np.cross(tm[:, 1] - tm[:, 0], tm[:, 2] - tm[:, 0])
+    normal_m /= np.linalg.norm(normal_m, axis=1, keepdims=True)
+    from skfem.quadrature import get_quadrature_tri
+
+    qp, qw = get_quadrature_tri(2 * order)  # on the unit triangle, weights sum to 1/2
+    points, weights, s_cells, m_cells, m_facet = [], [], [], [], []
+    tree = cKDTree(cm)
+    for i, near in enumerate(tree.query_ball_point(cs, rs + rm.max())):
+        o, e1 = ts[i, 0], ts[i, 1] - ts[i, 0]
+        e1 = e1 / np.linalg.norm(e1)
+        n = np.cross(ts[i, 1] - ts[i, 0], ts[i, 2] - ts[i, 0])
+        n /= np.linalg.norm(n)
+        e2 = np.cross(n, e1)
+        frame = np.stack([e1, e2])  # (2, 3): plane coordinates of the slave face
+        clip = (ts[i] - o) @ frame.T
+        for j in near:
+            poly = _clip((tm[j] - o) @ frame.T, clip)
+            for a, b, c in ((poly[0], poly[k], poly[k + 1]) for k in range(1, len(poly) - 1)):
+                area = 0.5 * abs((b[0] - a[0]) * (c[1] - a[1]) - (b[1] - a[1]) * (c[0] - a[0]))
+                if area <= 1e-14 * rs[i] ** 2:
+                    continue
+                xy = a[:, None] + np.outer(b - a, qp[0]) + np.outer(c - a, qp[1])  # (2, nq)
+                points.append(o[:, None] + frame.T @ xy)
+                weights.append(2 * area * qw)
+                s_cells.append(np.full(len(qw), mesh.f2t[0, slave[i]]))
+                m_cells.append(np.full(len(qw), mesh.f2t[0, master[j]]))
+                m_facet.append(np.full(len(qw), j))
+    if not points:
+        raise errors.InputError(f"{where}: the faces of parts '{tie.parts[0]}' and '{tie.parts[1]}' do not overlap")
+    x, w = np.hstack(points), np.concatenate(weights)
+    j = np.concatenate(m_facet)
+    xm = x - np.einsum("nd,dn->n", normal_m[j], x - tm[j, 0].T) * normal_m[j].T  # onto the reference face
+    ds, ps = fem.probe_weights(domain, order, x, np.concatenate(s_cells))
+    dm, pm = fem.probe_weights(domain, order, xm, np.concatenate(m_cells))
+    ps[np.abs(ps) < 1e-12], pm[np.abs(pm) < 1e-12] = 0.0, 0.0  # shape functions off the face vanish there
+    nb = ds.shape[0]
+    rows = np.repeat(ds[:, None, :], nb, axis=1).ravel()
+    cols = np.repeat(dm[None, :, :], nb, axis=0).ravel()
+    vals = (ps[:, None, :] * pm[None, :, :] * w).ravel()
+    keep = vals != 0
+    local = np.full(space.N, -1)
+    local[slave_dofs] = np.arange(len(slave_dofs))
+    masters, cols_local = np.unique(cols[keep], return_inverse=True)
+    M = sp.coo_matrix((vals[keep], (local[rows[keep]], cols_local)), shape=(len(slave_dofs), len(masters))).tocsc()
+    mass = kernels.Facets(space, geom, slave, kernels.degree_mass(order)).mass(1.0).matrix()
+    D = mass[slave_dofs][:, slave_dofs].tocsc()
+    if len(slave_dofs) * len(masters) > 5e7:
+        raise errors.InputError(f"{where}: the tie has {len(slave_dofs)} x {len(masters)} interface unknowns, too many for "
+                                "this tie (its map is dense); fragment the volumes in the mesher instead")
+    X = splu(D).solve(M.toarray())
+    X[np.abs(X) < 1e-12 * np.abs(X).max()] = 0.0
+    r, c = np.nonzero(X)
+    return slave_dofs[r], masters[c], X[r, c]
+
+
+def _clip(subject: np.ndarray, triangle: np.ndarray) -> np.ndarray:
+    """The part of a convex polygon (n, 2) inside a triangle (3, 2) (Sutherland-Hodgman clipping)."""
+    u, v = triangle[1] - triangle[0], triangle[2] - triangle[0]
+    if u[0] * v[1] - u[1] * v[0] < 0:
+        triangle = triangle[::-1]
+    out = subject
+    for k in range(3):
+        a, b = triangle[k], triangle[(k + 1) % 3]
+        if not len(out):
+            break
+        side = (b[0] - a[0]) * (out[:, 1] - a[1]) - (b[1] - a[1]) * (out[:, 0] - a[0])
+        inside = side >= -1e-12 * np.abs(side).max(initial=1.0)
+        kept = []
+        for i in range(len(out)):
+            j = (i + 1) % len(out)
+            if inside[i]:
+                kept.append(out[i])
+            if inside[i] != inside[j]:
+                t = side[i] / (side[i] - side[j])
+                kept.append(out[i] + t * (out[j] - out[i]))
+        out = np.array(kept).reshape(-1, 2)
+    return out
 
 
 def _barycentric(d: np.ndarray, e1: np.ndarray, e2: np.ndarray) -> np.ndarray:
@@ -201,3 +269,54 @@ def _barycentric(d: np.ndarray, e1: np.ndarray, e2: np.ndarray) -> np.ndarray:
     det = a11 * a22 - a12**2
     s, t = (a22 * b1 - a12 * b2) / det, (a11 * b2 - a12 * b1) / det
     return np.stack([1 - s - t, s, t], axis=1)
+
+
+def move_rows(cont: Continuity, rows: list, approximate: set[str], where: str):
+    """Support rows (points, directions, values, name) on tied points, and the vector tie map to use.
+
+    A point that follows one other point (a split interface) moves there exactly.  On a point that
+    follows a face's interpolation (a mortar tie), a support along a coordinate axis takes that
+    component out of the tie (the support prevails); the minimal support (which only removes rigid
+    motion) moves to the heaviest point it follows; any other support there is refused."""
+    vector = cont.vector()
+    if cont.empty:
+        return rows, vector
+    tied = np.zeros(cont.P.shape[0], dtype=bool)
+    tied[cont.tied] = True
+    out, refused, released = [], set(), []
+    for points, directions, values, name in rows:
+        points = np.asarray(points).copy()
+        for i in np.flatnonzero(tied[points]):
+            row = cont.P.getrow(points[i])
+            k = int(np.argmax(row.data))
+            axis = np.flatnonzero(np.abs(directions[i]) > 1 - 1e-12)
+            if row.data[k] > 1 - 1e-12 or name in approximate:
+                points[i] = row.indices[k]
+            elif len(axis):
+                released.append(3 * points[i] + axis[0])
+            else:
+                refused.add(name)
+        out.append((points, directions, values, name))
+    if refused:
+        raise errors.InputError([f"{where}.supports.{n}: the support is oblique on the tied side of a tie between "
+                                 "parts meshed apart; tie the parts the other way round (list the supported part "
+                                 "second)" for n in sorted(refused)])
+    return out, vector.release(np.array(released, dtype=np.int64))
+
+
+def with_tied(constraints, cont: Continuity):
+    """Constraints with the tied dofs added as fixed at zero in the reduced system.  At a point with a
+    local frame (a support whose component was taken out of the tie), the tied components are the
+    frame's unconstrained axes, so those local unknowns are the ones fixed."""
+    import dataclasses
+
+    if cont.empty:
+        return constraints
+    rank = np.bincount(constraints.fixed // 3, minlength=cont.P.shape[0] // 3)
+    points = cont.tied // 3
+    plain = cont.tied[rank[points] == 0]
+    framed = np.unique(points[rank[points] > 0])
+    local = [3 * p + k for p in framed.tolist() for k in range(int(rank[p]), 3)]
+    tied = np.r_[plain, np.array(local, dtype=np.int64)]
+    return dataclasses.replace(constraints, fixed=np.r_[constraints.fixed, tied],
+                               values=np.r_[constraints.values, np.zeros(len(tied))])

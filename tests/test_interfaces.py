@@ -1,0 +1,284 @@
+"""Interfaces: contact conductance on split interfaces, enclosed air as an unknown, parts meshed apart
+(found, refused until a joint is chosen, tied), and the stress stage across split interfaces and ties.
+
+[TG] = S.P. Timoshenko, J.N. Goodier, Theory of Elasticity, 3rd ed., McGraw-Hill 1970 (from memory).
+[INC] = F.P. Incropera, D.P. DeWitt, T.L. Bergman, A.S. Lavine, Fundamentals of Heat and Mass
+Transfer, 6th ed., Wiley 2007 (section numbers from memory; they can differ between editions).
+"""
+
+from __future__ import annotations
+
+import meshes
+import numpy as np
+import pytest
+from skfem import MeshTet
+
+from pipeline import errors
+from pipeline.model import mesh as mesh_mod
+from pipeline.model.materials import from_record
+from pipeline.stages import heat, mapping, stress
+from pipeline.stages.supports import Support
+
+LA, LB, W = 0.02, 0.03, 0.01  # two slabs along x [m], cross-section W x W
+KA, KB, R = 10.0, 2.0, 2e-3   # W/(m*K), W/(m*K), m^2*K/W (invented values)
+T1, T2 = 373.15, 293.15
+
+
+def material(k=10.0, e=70e9, nu=0.3, alpha=20e-6, name="m"):
+    return from_record(name, {"conductivity": k, "youngs_modulus": e, "poisson_ratio": nu, "expansion": alpha,
+                              "density": 1.0}, "test")
+
+
+def domain_of(m, parts=None, surfaces=None):
+    return mesh_mod.from_meshio(meshes.to_meshio(m, parts, surfaces), unit="m")
+
+
+def two_slabs(jitter=0.2, seed=1):
+    """Slabs a (x < LA) and b (x > LA), distorted everywhere but keeping the interface plane x = LA."""
+    m = meshes.tensor(np.r_[np.linspace(0, LA, 5), np.linspace(LA, LA + LB, 7)[1:]], np.linspace(0, W, 3),
+                      np.linspace(0, W, 3))
+    rng = np.random.default_rng(seed)
+    p = m.p.copy()
+    inner = np.setdiff1d(np.arange(m.nvertices), m.boundary_nodes())
+    p[1:, inner] += jitter * 0.005 * rng.uniform(-1, 1, (2, len(inner)))
+    off = inner[np.abs(p[0, inner] - LA) > 1e-12]
+    p[0, off] += jitter * 0.004 * rng.uniform(-1, 1, len(off))
+    m = MeshTet(p, m.t)
+    return m, meshes.layers(m, 0, {"a": (0, LA), "b": (LA, LA + LB)})
+
+
+def wall_spec(order, **kw):
+    return heat.HeatSpec({"a": material(KA), "b": material(KB)}, fixed_temperature={"xmin": T1, "xmax": T2},
+                         order=order, **kw)
+
+
+# --------------------------------------------------------------------------------- contact conductance
+
+@pytest.mark.parametrize("order", [1, 2])
+def test_composite_wall_with_contact_resistance(order):
+    """[INC] sec. 3.1.4 (composite wall with thermal contact resistance):
+    q'' = (T1 - T2) / (L_A/k_A + R'' + L_B/k_B), the jump at the contact q'' R''.  The exact field is
+    linear on each side with a jump, inside the split P1 and P2 spaces: exact to round-off on a
+    distorted mesh; the heat balance closes to round-off."""
+    m, parts = two_slabs()
+    d = mesh_mod.join(domain_of(m, parts), {"pad": mesh_mod.Joint("contact", parts=("a", "b"))})
+    f = heat.solve(d, wall_spec(order, contacts={"pad": 1 / R}))
+    q = (T1 - T2) / (LA / KA + R + LB / KB)
+    (rec,) = f.interfaces
+    assert rec["heat_W"] == pytest.approx(q * W * W, rel=1e-10)
+    assert rec["mean_drop_K"] == pytest.approx(q * R, rel=1e-10)
+    assert rec["max_drop_K"] == pytest.approx(q * R, rel=1e-10)
+    assert rec["area_m2"] == pytest.approx(W * W, rel=1e-12)
+    x = heat.fem.space(d, order).doflocs[0]
+    side_b = np.zeros(len(x), dtype=bool)
+    side_b[np.unique(heat.fem.space(d, order).element_dofs[:, d.parts["b"]])] = True
+    exact = np.where(side_b, T2 + q * (LA + LB - x) / KB, T1 - q * x / KA)
+    np.testing.assert_allclose(f.temperature, exact, rtol=0, atol=1e-9)
+    assert f.imbalance < 1e-12
+
+
+def test_interface_named_by_a_surface_and_an_insulated_one():
+    """A surface group on the interface names it; a zero conductance insulates: all heat stays in a."""
+    m, parts = two_slabs()
+    c = m.p[:, m.facets].mean(axis=1)
+    inner = np.flatnonzero((m.f2t[1] >= 0) & (np.abs(c[0] - LA) < 1e-12))
+    surfaces = meshes.faces(m) | {"joint": inner}
+    d = mesh_mod.join(domain_of(m, parts, surfaces), {"gap": mesh_mod.Joint("contact", surface="joint")})
+    assert d.contacts["gap"].parts == ("a", "b")
+    spec = heat.HeatSpec({"a": material(KA), "b": material(KB)}, power={"a": 2.0},
+                         convection={"xmin": heat.Convection(10.0, T2), "xmax": heat.Convection(10.0, T2)},
+                         contacts={"gap": 0.0})
+    f = heat.solve(d, spec)
+    assert f.interfaces[0]["heat_W"] == 0.0
+    out = {r["name"]: r["heat_in_W"] for r in f.balance}
+    assert out["xmin"] == pytest.approx(-2.0, rel=1e-10) and out["xmax"] == pytest.approx(0.0, abs=1e-12)
+
+
+def test_contact_needs_a_conductance_and_names_are_checked():
+    m, parts = two_slabs()
+    d = mesh_mod.join(domain_of(m, parts), {"pad": mesh_mod.Joint("contact", parts=("a", "b"))})
+    with pytest.raises(errors.InputError, match="interface 'pad' is split but has no conductance"):
+        heat.solve(d, wall_spec(1))
+    with pytest.raises(errors.InputError, match=r"interface 'pda' does not exist \(did you mean 'pad'\?\)"):
+        heat.solve(d, wall_spec(1, contacts={"pad": 1.0, "pda": 1.0}))
+    with pytest.raises(errors.InputError, match=r"part 'bb' does not exist \(did you mean 'b'\?\)"):
+        mesh_mod.join(domain_of(m, parts), {"x": mesh_mod.Joint("contact", parts=("a", "bb"))})
+    with pytest.raises(errors.InputError, match="already share nodes"):
+        mesh_mod.join(domain_of(m, parts), {"x": mesh_mod.Joint("tie", parts=("a", "b"))})
+
+
+@pytest.mark.parametrize("order", [1, 2])
+def test_split_interface_keeps_the_sides_together_in_the_stress_stage(order):
+    """Tied sides move as one: a uniform temperature rise on a bonded bimaterial bar gives the same
+    displacements and stresses on the split mesh as on the shared-node mesh (same discrete problem,
+    reordered: round-off)."""
+    m, parts = two_slabs()
+    bonded = domain_of(m, parts)
+    split = mesh_mod.join(bonded, {"pad": mesh_mod.Joint("contact", parts=("a", "b"))})
+    spec = stress.StressSpec({"a": material(e=70e9, alpha=23e-6), "b": material(e=200e9, alpha=12e-6)},
+                             {"xmin": Support("fixed")}, order=order)
+    load = lambda d: mapping.from_function(d, lambda x: 393.15 + 0 * x[0], mapping.MapSpec(reference=293.15), order)
+    one, two = stress.solve(bonded, load(bonded), spec), stress.solve(split, load(split), spec)
+    n = len(one.displacement)
+    scale = np.abs(one.displacement).max()
+    space_one, space_two = heat.fem.space(bonded, order), heat.fem.space(split, order)
+    # the split mesh keeps element ids: compare element by element
+    u1 = one.displacement[space_one.element_dofs]
+    u2 = two.displacement[space_two.element_dofs]
+    np.testing.assert_allclose(u2, u1, rtol=0, atol=1e-9 * scale)
+    np.testing.assert_allclose(two.von_mises, one.von_mises, rtol=1e-8, atol=1e-6 * one.von_mises.max())
+    np.testing.assert_allclose(two.reactions["xmin"], one.reactions["xmin"], rtol=1e-9, atol=1e-9)
+    assert n < len(two.displacement)
+
+
+# --------------------------------------------------------------------------------------- enclosed air
+
+def test_sealed_box_air_temperature_is_the_series_network():
+    """Enclosed air as an unknown: a block with power faces the air with film h_i on its top face; the
+    air gives the heat to a second block that is cooled outside.  With 1-D conduction through each
+    block ([INC] sec. 3.1, thermal resistance networks) the air temperature is that of the series
+    network T_air = T_inf + Q (L_B / (k_B A) + 1/(h_o A) + 1/(h_i A)) ... computed below; the sealed
+    air's net exchange is zero to round-off."""
+    # block a: x in [0, LA] (power Q, its face xmax faces the air) ; block b: separate, x in [LA+g, ...]
+    L = 0.01
+    ma = meshes.tensor(np.linspace(0, L, 5), np.linspace(0, W, 3), np.linspace(0, W, 3))
+    mb = meshes.tensor(np.linspace(2 * L, 3 * L, 5), np.linspace(0, W, 3), np.linspace(0, W, 3))
+    m = MeshTet(np.hstack([ma.p, mb.p]), np.hstack([ma.t, mb.t + ma.nvertices]))
+    parts = {"a": np.arange(ma.nelements), "b": ma.nelements + np.arange(mb.nelements)}
+    bnd = m.boundary_facets()
+    c = m.p[:, m.facets[:, bnd]].mean(axis=1)
+    surfaces = {"a_top": bnd[np.abs(c[0] - L) < 1e-12], "b_bottom": bnd[np.abs(c[0] - 2 * L) < 1e-12],
+                "b_out": bnd[np.abs(c[0] - 3 * L) < 1e-12]}
+    d = domain_of(m, parts, surfaces)
+    Q, hi, ho, k, amb = 1.5, 8.0, 25.0, 5.0, 298.15
+    spec = heat.HeatSpec({"a": material(k), "b": material(k)}, power={"a": Q},
+                         convection={"b_out": heat.Convection(ho, amb)},
+                         cavities={"air": heat.Cavity({"a_top": hi, "b_bottom": hi})})
+    f = heat.solve(d, spec)
+    (air,) = f.cavities
+    A = W * W
+    # all of Q crosses the air: from a's top into the air (1/(hi A)), air to b (1/(hi A)), through b
+    # (L/(k A)), out (1/(ho A)); the air sits between the second film and the ambient.
+    t_air = amb + Q * (1 / (ho * A) + L / (k * A) + 1 / (hi * A))
+    assert air["temperature_K"] == pytest.approx(t_air, rel=1e-10)
+    assert abs(air["from_solids_W"]) < 1e-10 * Q
+    assert air["films_W"]["a_top"] == pytest.approx(Q, rel=1e-10)
+    assert f.imbalance < 1e-12
+    assert not any("supplies" in n for n in f.notices)
+
+
+def test_ventilated_air_carries_its_share_and_sealed_air_needs_a_sink():
+    """With ventilation m_dot c_p the air's balance is sum films = m_dot c_p (T_air - T_in) (an energy
+    balance on the air, [INC] sec. 1.3.1); a body reached only by sealed air has no steady state."""
+    m = meshes.tensor(np.linspace(0, W, 4), np.linspace(0, W, 3), np.linspace(0, W, 3))
+    d = domain_of(m)
+    Q, vent, t_in = 2.0, 0.05, 300.0
+    spec = heat.HeatSpec({"body": material(50.0)}, power={"body": Q},
+                         cavities={"air": heat.Cavity({"xmax": 10.0}, ventilation=vent, inlet=t_in)})
+    f = heat.solve(d, spec)
+    (air,) = f.cavities
+    assert air["temperature_K"] == pytest.approx(t_in + Q / vent, rel=1e-10)
+    assert air["ventilation_W"] == pytest.approx(Q, rel=1e-10)
+    sealed = heat.HeatSpec({"body": material(50.0)}, power={"body": Q}, cavities={"air": heat.Cavity({"xmax": 10.0})})
+    with pytest.raises(errors.PhysicsError, match="no steady state"):
+        heat.solve(d, sealed)
+
+
+def test_a_fixed_ambient_that_supplies_heat_is_named_with_its_watts():
+    """A film to a fixed 'inside air' hotter than the wall puts heat into the solids: the notice names
+    the surface and the watts (here the closed form of a slab between two films, [INC] sec. 3.1)."""
+    m = meshes.tensor(np.linspace(0, W, 4), np.linspace(0, W, 3), np.linspace(0, W, 3))
+    d = domain_of(m)
+    spec = heat.HeatSpec({"body": material(50.0)},
+                         convection={"xmin": heat.Convection(10.0, 350.0), "xmax": heat.Convection(10.0, 300.0)})
+    f = heat.solve(d, spec)
+    q = 50.0 * W * W / (2 / 10.0 + W / 50.0)
+    (note,) = [n for n in f.notices if "supplies" in n]
+    assert "surface 'xmin'" in note and f"{q:+.4g} W" in note
+
+
+# --------------------------------------------------------------------------------- parts meshed apart
+
+def apart(nx_a=5, nx_b=4, ny_a=3, ny_b=4, shift=0.0):
+    """A bar of two parts meshed separately with different sizes, touching at x = LA (no shared nodes)."""
+    ma = meshes.tensor(np.linspace(0, LA, nx_a), np.linspace(0, W, ny_a), np.linspace(0, W, ny_a))
+    mb = meshes.tensor(np.linspace(LA, LA + LB, nx_b), np.linspace(0, W, ny_b) + shift, np.linspace(0, W, ny_b))
+    m = MeshTet(np.hstack([ma.p, mb.p]), np.hstack([ma.t, mb.t + ma.nvertices]))
+    parts = {"a": np.arange(ma.nelements), "b": ma.nelements + np.arange(mb.nelements)}
+    bnd = m.boundary_facets()
+    c = m.p[:, m.facets[:, bnd]].mean(axis=1)
+    surfaces = {"xmin": bnd[np.abs(c[0]) < 1e-12], "xmax": bnd[np.abs(c[0] - LA - LB) < 1e-12]}
+    return domain_of(m, parts, surfaces)
+
+
+def test_parts_meshed_apart_are_found_and_refused_until_chosen():
+    d = apart()
+    assert list(d.touching) == [("a", "b")]
+    assert d.touching[("a", "b")].area == pytest.approx(W * W, rel=1e-12)
+    with pytest.raises(errors.InputError, match=r"parts 'a' and 'b' touch on 0.0001 m\^2 .* share no nodes"):
+        heat.solve(d, wall_spec(1))
+    insulated = mesh_mod.join(d, {"ab": mesh_mod.Joint("insulated", parts=("b", "a"))})
+    assert not insulated.touching and not insulated.ties
+    with pytest.raises(errors.InputError, match="needs a conforming interface"):
+        mesh_mod.join(d, {"ab": mesh_mod.Joint("contact", parts=("a", "b"))})
+
+
+@pytest.mark.parametrize("order", [1, 2])
+@pytest.mark.parametrize("sizes", [dict(nx_a=5, ny_a=3, nx_b=9, ny_b=7), dict(nx_a=9, ny_a=7, nx_b=5, ny_b=3)])
+@pytest.mark.parametrize("first", ["a", "b"])
+def test_tie_of_parts_meshed_apart_passes_the_heat_patch_test(order, sizes, first):
+    """Mortar tie (C. Bernardi, Y. Maday, A.T. Patera, A new nonconforming approach to domain
+    decomposition: the mortar element method, 1994; B.I. Wohlmuth, SIAM J. Numer. Anal. 38, 2000):
+    the constraint int (T_s - T_m) mu dA = 0 for mu in the tied side's trace space holds for any field
+    linear on the interface, and constant fluxes are in that space, so a uniform gradient passes the
+    tie exactly (patch test) whichever side follows and whichever is finer: the plane-wall solution
+    [INC] sec. 3.1 to round-off, the heat balance to round-off."""
+    d = mesh_mod.join(apart(**sizes), {"ab": mesh_mod.Joint("tie", parts=(first, "b" if first == "a" else "a"))})
+    assert not d.touching and list(d.ties) == ["ab"]
+    f = heat.solve(d, heat.HeatSpec({"a": material(KA), "b": material(KA)},
+                                    fixed_temperature={"xmin": T1, "xmax": T2}, order=order))
+    x = heat.fem.space(d, order).doflocs[0]
+    np.testing.assert_allclose(f.temperature, T1 + (T2 - T1) * x / (LA + LB), rtol=0, atol=1e-9)
+    q = KA * W * W * (T1 - T2) / (LA + LB)
+    assert {r["name"]: r["heat_in_W"] for r in f.balance}["xmin"] == pytest.approx(q, rel=1e-10)
+    assert f.imbalance < 1e-10
+
+
+@pytest.mark.parametrize("order", [1, 2])
+def test_tie_passes_the_uniform_strain_patch_test(order):
+    """A bar pulled by a given end displacement d with symmetry on three faces has the uniform strain
+    d/L and sigma_xx = E d / L (uniaxial stress, [TG] ch. 1, from memory): linear displacements pass
+    the mortar tie exactly, so the stress is uniform to round-off through the non-matching interface,
+    and the reaction on xmin (listed first, so it owns the edge points) is -sigma_xx A."""
+    d = mesh_mod.join(apart(nx_a=5, ny_a=3, nx_b=9, ny_b=7), {"ab": mesh_mod.Joint("tie", parts=("b", "a"))})
+    m = d.mesh
+    bnd = m.boundary_facets()
+    c = d.points[m.facets[:, bnd].T].mean(axis=1)
+    faces = {"ymin": bnd[np.abs(c[:, 1]) < 1e-12], "zmin": bnd[np.abs(c[:, 2]) < 1e-12]}
+    d = mesh_mod._replace(d, surfaces=d.surfaces | faces)
+    e, delta, L = 70e9, 1e-5, LA + LB
+    spec = stress.StressSpec({"a": material(e=e), "b": material(e=e)},
+                             {"xmin": Support("symmetry"), "ymin": Support("symmetry"), "zmin": Support("symmetry"),
+                              "xmax": Support("displacement", components={"x": delta})}, order=order)
+    f = stress.solve(d, None, spec)
+    sxx = e * delta / L
+    np.testing.assert_allclose(f.stress[:, 0], sxx, rtol=1e-9)
+    np.testing.assert_allclose(f.stress[:, 1:], 0.0, atol=1e-9 * sxx)
+    assert f.reactions["xmin"][0] == pytest.approx(-sxx * W * W, rel=1e-9)  # xmin owns its edge points
+    assert f.equilibrium["relative"] < 1e-9  # solve round-off, as in tests/test_stress.py
+    x = heat.fem.space(d, order).doflocs
+    np.testing.assert_allclose(f.displacement[:, 0], delta * x[0] / L, rtol=0, atol=1e-9 * delta)  # solve round-off
+
+
+def test_tied_chain_heat_to_stress_under_a_linear_temperature_is_stress_free():
+    """The whole chain through a mortar tie, P2: a linear temperature (plane wall, [INC] sec. 3.1) in
+    a free body (minimal support) gives a compatible thermal strain, hence zero stress ([TG] ch. 13:
+    a linear temperature in an unrestrained body causes no stress); the displacement is quadratic,
+    inside P2 on both sides, so the tie reproduces it.  Tolerance: round-off of the reduced solve
+    (measured 4e-10 of E alpha dT; the conforming mesh gives 3e-14)."""
+    d = mesh_mod.join(apart(nx_a=5, ny_a=3, nx_b=9, ny_b=7), {"ab": mesh_mod.Joint("tie", parts=("b", "a"))})
+    mats = {"a": material(KA), "b": material(KA)}
+    f = heat.solve(d, heat.HeatSpec(mats, fixed_temperature={"xmin": T1, "xmax": T2}, order=2))
+    load = mapping.transfer(f, d, d, mapping.MapSpec(reference=T2))
+    s = stress.solve(d, load, stress.StressSpec(mats, {"free": Support("minimal")}, order=2))
+    assert np.abs(s.stress).max() < 1e-8 * 70e9 * 20e-6 * (T1 - T2)
