@@ -430,16 +430,11 @@ def _touching(mesh, points, part_of, ordered) -> dict[tuple[str, str], Touching]
     normal = np.cross(e1, e2)
     normal /= np.linalg.norm(normal, axis=1, keepdims=True)
     size = np.max(np.linalg.norm(tri - centres[:, None], axis=2), axis=1)  # centroid to farthest corner
-    tree = cKDTree(centres)
-    p, q = [], []
-    for i, near in enumerate(tree.query_ball_point(centres, (1 + TOUCH_TOLERANCE) * size.max())):
-        near = np.asarray(near, dtype=np.int64)
-        near = near[owner[near] != owner[i]]
-        p.append(np.full(len(near), i))
-        q.append(near)
-    p, q = np.concatenate(p), np.concatenate(q)
-    if not len(p):
+    pairs = cKDTree(centres).query_pairs((1 + TOUCH_TOLERANCE) * size.max(), output_type="ndarray")
+    pairs = pairs[owner[pairs[:, 0]] != owner[pairs[:, 1]]]
+    if not len(pairs):
         return {}
+    p, q = np.r_[pairs[:, 0], pairs[:, 1]], np.r_[pairs[:, 1], pairs[:, 0]]  # each way round
     gap = np.abs(np.einsum("nd,nd->n", centres[p] - tri[q, 0], normal[q]))
     opposed = np.abs(np.einsum("nd,nd->n", normal[p], normal[q])) > 0.99  # facets are not oriented
     # barycentric coordinates of the centroid of p in triangle q (projected on its plane)
