@@ -452,7 +452,7 @@ def _touching(mesh, points, part_of, ordered) -> dict[tuple[str, str], Touching]
         first = np.unique(np.concatenate([p[owner[p] == i], q[owner[q] == i]]))
         second = np.unique(np.concatenate([p[owner[p] == j], q[owner[q] == j]]))
         out[(ordered[i], ordered[j])] = Touching((bnd[first], bnd[second]),
-                                                 0.5 * float(area[first].sum() + area[second].sum()))
+                                                 min(float(area[first].sum()), float(area[second].sum())))
     return out
 
 
@@ -546,7 +546,8 @@ class Touching:
     """Boundary faces of two parts that lie on each other without shared nodes.
 
     facets: (facet ids of the first part, facet ids of the second) whose centroids lie on the other
-    part's faces.  area: touching area [m^2] (the mean of the two sides' areas)."""
+    part's faces.  area: touching area [m^2] (the smaller of the two sides' areas: the faces of the
+    side whose faces reach past the touching area's edge are counted whole)."""
 
     facets: tuple[np.ndarray, np.ndarray]
     area: float

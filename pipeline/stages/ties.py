@@ -177,7 +177,10 @@ def _mortar(domain, space: kernels.Space, tie, where: str):
 
     mesh, order = domain.mesh, space.order
     geom = fem.geometry(domain)
-    slave, master = tie.facets
+    slave = tie.facets[0]
+    # every outer face of the reference part may overlap (not only those whose centroid lies on the tied side)
+    bnd = mesh.boundary_facets()
+    master = bnd[np.isin(mesh.f2t[0, bnd], domain.parts[tie.parts[1]])]
     slave_dofs = space.facet_dofs(slave)
     ts, tm = (domain.points[mesh.facets[:, f].T] for f in (slave, master))  # (k, 3, 3)
     cs, cm = ts.mean(axis=1), tm.mean(axis=1)
@@ -188,7 +191,7 @@ def _mortar(domain, space: kernels.Space, tie, where: str):
     from skfem.quadrature import get_quadrature_tri
 
     qp, qw = get_quadrature_tri(2 * order)  # on the unit triangle, weights sum to 1/2
-    points, weights, s_cells, m_cells, m_facet = [], [], [], [], []
+    points, weights, s_cells, m_cells, m_facet, s_facet = [], [], [], [], [], []
     tree = cKDTree(cm)
     for i, near in enumerate(tree.query_ball_point(cs, rs + rm.max())):
         o, e1 = ts[i, 0], ts[i, 1] - ts[i, 0]
@@ -199,6 +202,8 @@ def _mortar(domain, space: kernels.Space, tie, where: str):
         frame = np.stack([e1, e2])  # (2, 3): plane coordinates of the slave face
         clip = (ts[i] - o) @ frame.T
         for j in near:
+            if abs(normal_m[j] @ n) < 0.99 or np.abs((tm[j] - o) @ n).max() > 1e-3 * rs[i]:
+                continue  # not on the tied face's plane
             poly = _clip((tm[j] - o) @ frame.T, clip)
             for a, b, c in ((poly[0], poly[k], poly[k + 1]) for k in range(1, len(poly) - 1)):
                 area = 0.5 * abs((b[0] - a[0]) * (c[1] - a[1]) - (b[1] - a[1]) * (c[0] - a[0]))
@@ -210,9 +215,18 @@ def _mortar(domain, space: kernels.Space, tie, where: str):
                 s_cells.append(np.full(len(qw), mesh.f2t[0, slave[i]]))
                 m_cells.append(np.full(len(qw), mesh.f2t[0, master[j]]))
                 m_facet.append(np.full(len(qw), j))
+                s_facet.append(np.full(len(qw), i))
     if not points:
         raise errors.InputError(f"{where}: the faces of parts '{tie.parts[0]}' and '{tie.parts[1]}' do not overlap")
     x, w = np.hstack(points), np.concatenate(weights)
+    covered = np.bincount(np.concatenate(s_facet), w, minlength=len(slave))  # overlap area per tied face
+    area = 0.5 * np.linalg.norm(np.cross(ts[:, 1] - ts[:, 0], ts[:, 2] - ts[:, 0]), axis=1)
+    short = np.flatnonzero(covered < (1 - 1e-6) * area)
+    if len(short):
+        raise errors.InputError(f"{where}: {len(short)} faces of part '{tie.parts[0]}' reach past the faces of part "
+                                f"'{tie.parts[1]}' (covered down to {covered[short].min() / area[short].max():.1%}); "
+                                "the tied (first) part must be the one whose touching faces lie within the other's: "
+                                "tie them the other way round")
     j = np.concatenate(m_facet)
     xm = x - np.einsum("nd,dn->n", normal_m[j], x - tm[j, 0].T) * normal_m[j].T  # onto the reference face
     ds, ps = fem.probe_weights(domain, order, x, np.concatenate(s_cells))
