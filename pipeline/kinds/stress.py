@@ -64,7 +64,7 @@ def plan(ctx: base.Context, name: str, stage: StressStage, where: str) -> base.S
         "options": stage.model_dump(exclude={"materials", "source", "memory_limit"}),
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes,
-        "upstream": upstream.key if upstream else None}
+        "upstream": upstream.key if upstream else None} | base.interface_inputs(ctx, domain)
     return base.StagePlan(name, NAME, domain, spec, inputs, source=stage.source, materials=names)
 
 

@@ -278,7 +278,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
     T = T[: space.N]
 
     parts = _part_statistics(domain, problem, T)
-    notices = list(domain.notices) + _validity_notices(spec, parts) + _supply_notices(balance)
+    notices = list(domain.notices) + _validity_notices(spec, parts)
     if outside:
         notices.append(f"{outside} quadrature-point temperatures lay outside a conductivity table's range; "
                        "the end values were held there")
@@ -292,14 +292,13 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
     )
 
 
-def _supply_notices(balance: list[dict]) -> list[str]:
-    """A fixed ambient (film or radiation to a given temperature) that supplies net heat to the solids
-    is named with its watts: in a sealed box at steady state that would be heat created from nothing."""
+def supplying(balance) -> list[dict]:
+    """Balance records of fixed ambients (convection or radiation to a given temperature) that supply net
+    heat to the solids: in a sealed box at steady state that is heat from nothing (model the air as a
+    cavity).  Flows below ``SUPPLY_WARNING`` of the largest one are round-off."""
     scale = max((abs(r["heat_in_W"]) for r in balance), default=0.0)
-    return [f"surface '{r['name']}' ({r['kind']} to a fixed ambient) supplies {r['heat_in_W']:+.4g} W to the solids; "
-            "if it faces enclosed air, model the air as a cavity (its temperature then follows from the balance)"
-            for r in balance if r["kind"] in ("convection", "radiation")
-            and r["heat_in_W"] > SUPPLY_WARNING * scale and r["heat_in_W"] > 0]
+    return [r for r in balance if r["kind"] in ("convection", "radiation") and r["heat_in_W"] > 0
+            and r["heat_in_W"] > SUPPLY_WARNING * scale]
 
 
 def _initial_temperature(spec: HeatSpec) -> float:

@@ -19,6 +19,7 @@ import numpy as np
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
+from ..model.mesh import touching_problems
 from . import constitutive, fem, kernels, recovery, solvers, supports, ties
 from .supports import Support
 
@@ -83,6 +84,7 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         if m.kind == "isotropic" and not -1 < m.poisson_ratio[0] < 0.5:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
     fem.check_probes(domain, spec.probes, where, problems)
+    problems += touching_problems(domain, where)  # parts meshed apart need a joint first
     if spec.order in fem.ORDERS and not problems:
         try:
             solvers.check_memory(3 * fem.unknowns(domain, spec.order), spec.order, 3, spec.solver, spec.memory_limit,
