@@ -24,7 +24,7 @@ from ..model.materials import Material
 from ..model.units import celsius
 from . import fem, kernels, solvers, ties
 
-STAGE_VERSION = 2
+STAGE_VERSION = 3
 
 
 @dataclass(frozen=True)
@@ -553,9 +553,11 @@ def _probe_values(domain, order, T, probes, where) -> dict[str, float]:
 
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:
     used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux) | set(spec.radiation)
+    used |= {s for c in spec.cavities.values() for s in c.films}
     out = [s for s in sorted(domain.surfaces) if s not in used]
     boundary = domain.boundary_facets()
-    named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] or [np.zeros(0, dtype=np.int64)])
+    joined = [f for c in domain.contacts.values() for f in c.facets] + [f for t in domain.ties.values() for f in t.facets]
+    named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] + joined or [np.zeros(0, dtype=np.int64)])
     rest = np.setdiff1d(boundary, named)
     if len(rest):
         out.append(f"(boundary in no surface group: {len(rest)} facets, {domain.facet_areas(rest).sum():.4g} m^2)")
