@@ -317,3 +317,50 @@ def test_die_on_sink_meshed_part_by_part_and_tied_gives_the_bonded_answer():
     (t1, s1), (t2, s2), (tt, st) = run(bonded, 1), run(bonded, 2), run(tied, 2)
     assert abs(tt - t2) < abs(t2 - t1)
     assert abs(st - s2) < abs(s2 - s1)
+
+
+# ------------------------------------------------------------------------------------------ workflows
+
+def _workflow(tmp_path, interfaces: str, mesh="die_on_sink_apart.msh") -> "Path":
+    from pathlib import Path
+
+    root = Path(__file__).parent.parent
+    text = (root / "workflows" / "die_on_sink.toml").read_text()
+    start, end = text.index("[interfaces.die_on_sink]"), text.index("[stages.heat]")
+    text = text[:start] + interfaces + "\n" + text[end:]
+    text = text.replace('"../cases/', f'"{(root / "cases").as_posix()}/').replace(
+        "die_on_sink_apart.msh", mesh).replace("order = 2", "order = 1")
+    path = tmp_path / "w.toml"
+    path.write_text(text)
+    return path
+
+
+def test_a_workflow_must_choose_how_parts_meshed_apart_are_joined(tmp_path):
+    """Bad input (exit status 2 at the command line): the pair and its touching area are named."""
+    from pipeline.flow import runner
+
+    with pytest.raises(errors.InputError, match=r"parts 'die' and 'sink' touch on 0.0001 m\^2 .*\[interfaces\]"):
+        runner.plan(_workflow(tmp_path, ""), store=str(tmp_path / "s"))
+    with pytest.raises(errors.InputError, match="a contact needs exactly one of conductance"):
+        runner.plan(_workflow(tmp_path, '[interfaces.j]\nkind = "contact"\nparts = ["die", "sink"]\n'),
+                    store=str(tmp_path / "s"))
+    with pytest.raises(errors.InputError, match=r"part 'dye' does not exist \(did you mean 'die'\?\)"):
+        runner.plan(_workflow(tmp_path, '[interfaces.j]\nkind = "tie"\nparts = ["dye", "sink"]\n'),
+                    store=str(tmp_path / "s"))
+
+
+def test_contact_resistance_through_a_workflow(tmp_path):
+    """The bonded die-on-sink mesh with a contact resistance R'' on the die's bottom: the summary gives
+    the heat through the interface (all 10 W, the die has no other way out) and the mean drop
+    q'' R'' = (10 W / 1e-4 m^2) R'' ([INC] sec. 3.1.4; the flux is not uniform over the face, so
+    the area mean is what the closed form gives: mean drop = R'' Q / A exactly)."""
+    from pipeline.flow import runner
+
+    R2 = 2e-5  # m^2*K/W (invented)
+    path = _workflow(tmp_path, f'[interfaces.bond]\nkind = "contact"\nparts = ["die", "sink"]\n'
+                               f'resistance = "{R2} m^2*K/W"\n', mesh="die_on_sink_bonded.msh")
+    record = runner.run(path, store=tmp_path / "s", out=tmp_path / "out")
+    (rec,) = record["stages"]["heat"]["interfaces"]
+    assert rec["heat_W"] == pytest.approx(10.0, rel=1e-9)
+    assert rec["mean_drop_K"] == pytest.approx(R2 * 10.0 / 1e-4, rel=1e-9)
+    assert record["stages"]["heat"]["inputs"]["interfaces"]["bond"]["resistance"] == R2

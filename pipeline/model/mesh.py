@@ -459,7 +459,7 @@ def _touching(mesh, points, part_of, ordered) -> dict[tuple[str, str], Touching]
 def touching_problems(domain: Domain, where: str) -> list[str]:
     """One bad-input line per pair of parts that touch without shared nodes and have no joint chosen."""
     return [f"{where}: parts '{a}' and '{b}' touch on {t.area:.4g} m^2 ({len(t.facets[0])} and {len(t.facets[1])} "
-            f"facets) but share no nodes there; choose in the workflow's interfaces: kind = 'tie' (heat and "
+            f"facets) but share no nodes there; choose in the workflow's [interfaces] table: kind = 'tie' (heat and "
             "displacement continuous), or 'insulated' (nothing crosses), or fragment the volumes in the mesher "
             "(docs/meshing.md)" for (a, b), t in sorted(domain.touching.items())]
 
