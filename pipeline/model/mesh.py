@@ -172,6 +172,13 @@ class Domain:
             lines.append(f"  surface {name}: {len(self.surfaces[name])} facets, {area:.4e} m^2")
         for (a, b), facets in sorted(self.interfaces.items()):
             lines.append(f"  interface {a}/{b}: {len(facets)} facets")
+        for (a, b), t in sorted(self.touching.items()):
+            lines.append(f"  parts {a} and {b} touch on {t.area:.4e} m^2 without shared nodes (meshed apart: "
+                         "fragment them, or tie or insulate them in the workflow's [interfaces])")
+        for name, c in sorted(self.contacts.items()):
+            lines.append(f"  contact {name} ({c.parts[0]}/{c.parts[1]}): split, {len(c.facets[0])} facets")
+        for name, t in sorted(self.ties.items()):
+            lines.append(f"  tie {name}: {t.parts[0]} follows {t.parts[1]}")
         lines += [f"  note: {n}" for n in self.notices]
         return "\n".join(lines)
 
