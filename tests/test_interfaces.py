@@ -381,3 +381,70 @@ def test_the_meshing_page_example_runs_and_its_parts_share_nodes(tmp_path, monke
     assert not d.touching
     assert d.facet_areas(d.interfaces[("die", "sink")]).sum() == pytest.approx(1e-4, rel=1e-9)
     assert "interface die/sink" in d.describe()
+
+
+# ------------------------------------------------------------------------------------------ preload
+
+def _bolted_plates():
+    """A square shank (2a x 2a) through two plates (a square tube 6a wide with a 4a hole, so the shank
+    touches nothing but the heads), between a head and a nut that are 1e4 times stiffer; the shank is
+    cut at mid-length by a pretension section (parts shank_lower / shank_upper).  Orthotropic
+    materials with zero Poisson ratios and expansion along z only make every member uniaxial."""
+    a, L, h = 0.002, 0.02, 0.002
+    xs = np.linspace(-3 * a, 3 * a, 7)
+    zs = np.r_[-h, np.linspace(0, L, 5), L + h]
+    m = meshes.tensor(xs, xs, zs)
+    c = m.p[:, m.t].mean(axis=1)
+    r = np.maximum(np.abs(c[0]), np.abs(c[1]))
+    head, shank, tube = (c[2] < 0) | (c[2] > L), (r < a) & (c[2] > 0) & (c[2] < L), (r > 2 * a) & (c[2] > 0) & (c[2] < L)
+    keep = head | shank | tube
+    c, head, shank, tube = c[:, keep], head[keep], shank[keep], tube[keep]
+    parts = {"head": np.flatnonzero(head & (c[2] > L)), "nut": np.flatnonzero(head & (c[2] < 0)),
+             "shank_lower": np.flatnonzero(shank & (c[2] < L / 2)), "shank_upper": np.flatnonzero(shank & (c[2] > L / 2)),
+             "plate_1": np.flatnonzero(tube & (c[2] < L / 2)), "plate_2": np.flatnonzero(tube & (c[2] > L / 2))}
+    d = domain_of(MeshTet(m.p, np.ascontiguousarray(m.t[:, keep])), parts, {})
+    return mesh_mod.join(d, {"bolt": mesh_mod.Joint("section", parts=("shank_lower", "shank_upper"))}), a, L
+
+
+def _uniaxial(name, e, alpha):
+    return from_record(name, {"kind": "orthotropic", "conductivity": [1.0] * 3, "youngs_modulus": [e] * 3,
+                              "poisson_ratio": [0.0] * 3, "shear_modulus": [e / 2] * 3,
+                              "expansion": [0.0, 0.0, alpha], "density": 1.0}, "test")
+
+
+@pytest.mark.parametrize("order", [1, 2])
+def test_bolt_preload_and_its_change_under_a_uniform_temperature(order):
+    """Bolt clamping two plates (J.H. Bickford, An Introduction to the Design and Behavior of Bolted
+    Joints, 3rd ed., 1995, the joint diagram; from memory): the preload F puts the bolt in tension F and
+    the plates in compression F (equilibrium), with the shortening F (1/k_b + 1/k_p); a uniform
+    temperature change dT with expansions a_p (plates) and a_b (bolt) changes the bolt force by
+    dF = (a_p - a_b) dT L k_b k_p / (k_b + k_p), k = E A / L.  The members are uniaxial (linear
+    displacement, in both spaces); the heads' compliance (E 1e4 times the bolt's) is the model-form
+    error: measured 2e-5 (P1) and 6e-5 (P2) of the bolt force after heating and 2e-4 of the
+    shortening, tolerance 1e-3.  Forces: the section force, and the plates'
+    and the shank's axial forces from the volume mean of sigma_zz (F = int sigma_zz dV / L)."""
+    d, a, L = _bolted_plates()
+    E, Eb, ab, ap, F, dT = 70e9, 200e9, 12e-6, 23e-6, 5000.0, 80.0
+    stiff = _uniaxial("head", 1e4 * Eb, 0.0)
+    mats = {"head": stiff, "nut": stiff, "shank_lower": _uniaxial("bolt", Eb, ab),
+            "shank_upper": _uniaxial("bolt", Eb, ab), "plate_1": _uniaxial("plate", E, ap),
+            "plate_2": _uniaxial("plate", E, ap)}
+    spec = stress.StressSpec(mats, {"free": Support("minimal")}, order=order, preload={"bolt": F}, solver="direct")
+
+    def axial(s, names):
+        ids = np.concatenate([d.parts[n] for n in names])
+        return float((s.stress[ids, 2] * d.element_volumes[ids]).sum() / L)
+
+    kb, kp = Eb * (2 * a) ** 2 / L, E * ((6 * a) ** 2 - (4 * a) ** 2) / L
+    assembled = stress.solve(d, None, spec)
+    bolt = assembled.meta["preload"]["bolt"]
+    assert bolt["force_N"] == pytest.approx(F, rel=1e-9)
+    assert axial(assembled, ["shank_lower", "shank_upper"]) == pytest.approx(F, rel=1e-6)
+    assert axial(assembled, ["plate_1", "plate_2"]) == pytest.approx(-F, rel=1e-6)
+    assert bolt["shortening_m"] == pytest.approx(F * (1 / kb + 1 / kp), rel=1e-3)
+    load = mapping.from_function(d, lambda x: 373.15 + 0 * x[0], mapping.MapSpec(reference=373.15 - dT), order)
+    heated = stress.solve(d, load, spec)
+    expected = F + (ap - ab) * dT * L * kb * kp / (kb + kp)
+    assert heated.meta["preload"]["bolt"]["force_N"] == pytest.approx(expected, rel=1e-3)
+    assert axial(heated, ["plate_1", "plate_2"]) == pytest.approx(-heated.meta["preload"]["bolt"]["force_N"], rel=1e-6)
+    assert heated.equilibrium["relative"] < 1e-5  # round-off grown by the 1e4 stiffness contrast (measured 2e-7)

@@ -104,10 +104,11 @@ class OutputSection(Strict):
 class InterfaceSection(Strict):
     """A joint between two parts (docs/workflow.md, [interfaces]): by its parts or by a surface group on it."""
 
-    kind: Literal["contact", "tie", "insulated"] = Field(
+    kind: Literal["contact", "tie", "insulated", "section"] = Field(
         description="contact: split the shared interface, a conductance acts across it (sides stay together in "
                     "the stress stage); tie: parts meshed apart, heat and displacement continuous (mortar); "
-                    "insulated: no heat crosses")
+                    "insulated: no heat crosses; section: a bolt's pretension section (a planar interface "
+                    "across the shank between two parts) for stages.NAME.preload")
     parts: Annotated[list[str], Field(min_length=2, max_length=2)] | None = Field(
         default=None, description="the two parts (for a tie: the part that follows first)")
     surface: str | None = Field(default=None, description="or a surface group lying on the interface")
@@ -128,7 +129,7 @@ class InterfaceSection(Strict):
     @property
     def heat_conductance(self) -> float:
         """h_c [W/(m^2*K)]: the given one, 1/R'', or 0 for an insulated interface."""
-        if self.kind == "insulated":
+        if self.kind in ("insulated", "section"):
             return 0.0
         return self.conductance if self.conductance is not None else 1.0 / self.resistance
 

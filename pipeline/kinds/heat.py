@@ -82,7 +82,9 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
         radiation=_radiation(stage, where, problems),
         fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
         memory_limit=stage.memory_limit, max_iterations=stage.max_iterations,
-        contacts={n: j.heat_conductance for n, j in ctx.workflow.interfaces.items() if n in domain.contacts},
+        contacts={n: j.heat_conductance for n, j in ctx.workflow.interfaces.items()
+                  if n in domain.contacts and j.kind != "section"},
+        tied=tuple(n for n, j in ctx.workflow.interfaces.items() if n in domain.contacts and j.kind == "section"),
         cavities={n: heat.Cavity(dict(c.films), c.ventilation, c.inlet) for n, c in stage.cavities.items()})
     problems += [errors.unknown_name("surface", a, domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in domain.surfaces]

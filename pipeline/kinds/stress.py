@@ -43,6 +43,8 @@ class StressStage(Strict):
     pressure: dict[str, Pressure] = Field(default_factory=dict, description="surface -> Pa")
     force: dict[str, Annotated[list[Force], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
     gravity: Annotated[list[Acceleration], Field(min_length=3, max_length=3)] | None = None
+    preload: dict[str, Force] = Field(default_factory=dict, description="pretension section ([interfaces] kind = "
+                                      "'section') -> bolt preload [N], tension positive")
 
 
 Schema = StressStage
@@ -57,7 +59,8 @@ def plan(ctx: base.Context, name: str, stage: StressStage, where: str) -> base.S
     spec = stress.StressSpec(mats, sups, pressure=stage.pressure,
                              force={s: tuple(f) for s, f in stage.force.items()},
                              gravity=tuple(stage.gravity) if stage.gravity else None, probes=ctx.probes,
-                             order=stage.order, solver=stage.solver, memory_limit=stage.memory_limit)
+                             order=stage.order, solver=stage.solver, memory_limit=stage.memory_limit,
+                             preload=dict(stage.preload))
     base.checked(stress.check, domain, spec, where, problems)
     base.before_solving(supports.check, domain, spec.supports, where)
     inputs = ctx.base_inputs(NAME, stress.STAGE_VERSION) | {
@@ -87,6 +90,7 @@ def summary(plan: base.StagePlan, field: StressField) -> dict:
         "notice_records": [Notice.of(n).to_dict() for n in field.notices],
         "support_surfaces": [n for n, v in sups.items() if v.kind != "minimal"],
         "fixed_supports": [n for n, v in sups.items() if v.kind == "fixed"],
+        "bolts": {n: dict(b) for n, b in field.meta.get("preload", {}).items()},
     }
 
 
@@ -162,6 +166,12 @@ def report(entry, context: base.OutputContext) -> list[str]:
          "n/a" if f["safety_factor"] is None else f"{f['safety_factor']:.3g}",
          verdict(None if f["safety_factor"] is None else f["safety_factor"] >= required)]
         for p, f in entry["parts"].items()])]
+    if entry.get("bolts"):
+        out.append("<p>Bolts (pretension sections; preload set with no other load, then held; the clamp force "
+                   "on the members equals the bolt force; joint design itself, e.g. by VDI 2230, is not "
+                   "checked):</p>" + table(["bolt", "preload [N]", "after the loads [N]", "shortening [um]"], [
+                       [n, f"{b['preload_N']:.5g}", f"{b['force_N']:.5g}", f"{b['shortening_m'] * 1e6:.4g}"]
+                       for n, b in entry["bolts"].items()]))
     eq = entry["equilibrium"]
     out.append(table(["support", "Rx [N]", "Ry [N]", "Rz [N]"], [[k] + [f"{v:.5g}" for v in r]
                                                                 for k, r in entry["reactions_N"].items()]))
@@ -177,6 +187,8 @@ def console(entry) -> list[str]:
         lines.append(f"  {part:<16} von Mises max {f['von_mises_max_Pa'] / 1e6:9.2f} MPa at "
                      f"{[round(c * 1e3, 2) for c in f['von_mises_max_at_m']]} mm; safety factor "
                      f"{'n/a' if sf is None else f'{sf:.2f}'} ({f['criterion'].split(':')[0]})")
+    lines += [f"  bolt {n:<15} preload {b['preload_N']:10.1f} N; after the loads {b['force_N']:10.1f} N (clamp force "
+              f"{b['force_N']:.1f} N)" for n, b in entry.get("bolts", {}).items()]
     lines.append(f"  reactions {', '.join(f'{k} {[round(v, 3) for v in r]} N' for k, r in entry['reactions_N'].items())};"
                  f" equilibrium {entry['equilibrium']['relative']:.1e}")
     return lines
@@ -195,6 +207,7 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
         if f["safety_factor"] is not None:
             factors.append(f["safety_factor"])
     out[f"{name}.safety_factor_min"] = min(factors) if factors else None
+    out |= {f"{name}.bolts.{n}.force_N": b["force_N"] for n, b in entry.get("bolts", {}).items()}
     out[f"{name}.displacement_max_mm"] = entry["displacement_max_m"] * 1e3
     for p, v in entry.get("probes", {}).items():
         out[f"{name}.probes.{p}.von_mises_MPa"] = v["von_mises_Pa"] / 1e6

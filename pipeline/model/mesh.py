@@ -567,7 +567,9 @@ class Joint:
     kind: "contact" (split the interface; a conductance per area acts across it in the heat stage and
     the two sides keep the same displacement), "tie" (heat and displacement continuous; for parts
     meshed apart) or "insulated" (no heat crosses; for a shared interface the sides stay tied
-    mechanically, for parts meshed apart nothing crosses).  parts: the two parts; or surface: a surface
+    mechanically, for parts meshed apart nothing crosses) or "section" (a bolt's pretension section: a
+    planar shared interface across the shank, split; heat and displacement continuous but for the
+    shortening that a preload imposes in the stress stage).  parts: the two parts; or surface: a surface
     group on the interface (inner facets), whose two sides name the parts."""
 
     kind: str
@@ -575,7 +577,7 @@ class Joint:
     surface: str | None = None
 
 
-JOINT_KINDS = ("contact", "tie", "insulated")
+JOINT_KINDS = ("contact", "tie", "insulated", "section")
 
 #: Faces of two parts lie on each other when a centroid is within this fraction of the local edge length.
 TOUCH_TOLERANCE = 1e-3
@@ -601,6 +603,9 @@ def join(domain: Domain, joints: dict[str, Joint], where: str = "interfaces") ->
         if pair is None:
             continue
         if facets is not None:  # a shared (conforming) interface
+            if joint.kind == "section" and not _planar(domain, facets):
+                problems.append(f"{key}: a pretension section must be planar (a cut across the bolt's shank)")
+                continue
             if joint.kind == "tie":
                 problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' already share nodes on their interface "
                                 "(bonded); a tie is for parts meshed apart; use kind = 'contact' for a conductance")
@@ -611,7 +616,7 @@ def join(domain: Domain, joints: dict[str, Joint], where: str = "interfaces") ->
         if found is None:
             problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' neither share an interface nor touch")
             continue
-        if joint.kind == "contact":
+        if joint.kind in ("contact", "section"):
             problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' are meshed apart (no shared nodes); a contact "
                             "conductance needs a conforming interface (fragment the volumes in the mesher) or "
                             "choose kind = 'tie' or 'insulated'")
@@ -656,6 +661,14 @@ def _joint_facets(domain: Domain, joint: Joint, key: str, problems: list[str]):
         return None, None
     pair = tuple(sorted(joint.parts))
     return pair, domain.interfaces.get(pair)
+
+
+def _planar(domain: Domain, facets: np.ndarray) -> bool:
+    tri = domain.points[domain.mesh.facets[:, facets].T]
+    n = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+    n /= np.linalg.norm(n, axis=1, keepdims=True)
+    return bool(np.abs(np.abs(n @ n[0]) - 1).max() < 1e-6 and np.abs((tri[:, 0] - tri[0, 0]) @ n[0]).max()
+                < 1e-9 * np.linalg.norm(np.ptp(domain.points, axis=0)))
 
 
 def _replace(domain: Domain, **changes) -> Domain:

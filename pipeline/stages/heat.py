@@ -87,7 +87,8 @@ class HeatSpec:
     convection: surface -> Convection.  radiation: surface -> Radiation.
     fixed_temperature: surface -> K, a number or a function of x.
     contacts: contact name (``domain.contacts``) -> conductance per area h_c = 1/R'' [W/(m^2*K)]; 0 for
-    an insulated interface.  cavities: name -> Cavity (enclosed air as an unknown).
+    an insulated interface.  tied: split interfaces that conduct perfectly (bolt pretension sections).
+    cavities: name -> Cavity (enclosed air as an unknown).
     Nonlinear terms (radiation, k(T), power-law convection) are solved by Newton-Raphson with the
     consistent Jacobian; ``max_iterations`` bounds it, ``tolerance`` is the relative residual.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
@@ -103,6 +104,7 @@ class HeatSpec:
     radiation: Mapping[str, Radiation] = field(default_factory=dict)
     fixed_temperature: Mapping[str, float | Callable] = field(default_factory=dict)
     contacts: Mapping[str, float] = field(default_factory=dict)
+    tied: tuple[str, ...] = ()
     cavities: Mapping[str, Cavity] = field(default_factory=dict)
     probes: Mapping[str, tuple[float, float, float]] = field(default_factory=dict)
     order: int = 1
@@ -166,7 +168,7 @@ def _interface_problems(domain, spec: HeatSpec, where: str) -> list[str]:
 
     bad = touching_problems(domain, where)
     for name in domain.contacts:
-        if name not in spec.contacts:
+        if name not in spec.contacts and name not in spec.tied:
             bad.append(f"{where}.contacts: interface '{name}' is split but has no conductance; give h_c "
                        "[W/(m^2*K)] or a resistance R'' [m^2*K/W] (0 conductance for an insulated interface)")
     for name, h in spec.contacts.items():
@@ -342,7 +344,7 @@ class _Problem:
                          for name, h in spec.contacts.items()}
         self.cavities = [(name, c, [(s, h, kernels.Facets(self.space, self.geom, domain.surfaces[s], degree))
                                     for s, h in c.films.items()]) for name, c in spec.cavities.items()]
-        tie = ties.continuity(domain, self.space)
+        tie = ties.continuity(domain, self.space, spec.tied)
         pad = sp.identity(len(spec.cavities), format="csr")
         self.tie = ties.Continuity(sp.block_diag([tie.P, pad], format="csr"), tie.tied)
         self.losses = [(name, "convection", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), c)
