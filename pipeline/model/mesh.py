@@ -437,11 +437,14 @@ def _touching(mesh, points, part_of, ordered) -> dict[tuple[str, str], Touching]
     normal = np.cross(e1, e2)
     normal /= np.linalg.norm(normal, axis=1, keepdims=True)
     size = np.max(np.linalg.norm(tri - centres[:, None], axis=2), axis=1)  # centroid to farthest corner
-    pairs = cKDTree(centres).query_pairs((1 + TOUCH_TOLERANCE) * size.max(), output_type="ndarray")
-    pairs = pairs[owner[pairs[:, 0]] != owner[pairs[:, 1]]]
-    if not len(pairs):
+    # candidates: centroids p within the size of face q (a centroid inside q is that close to q's)
+    near = cKDTree(centres).query_ball_point(centres, (1 + TOUCH_TOLERANCE) * size, return_sorted=False)
+    q = np.repeat(np.arange(len(near)), [len(n) for n in near])
+    p = np.concatenate([np.asarray(n, dtype=np.int64) for n in near]) if len(q) else np.zeros(0, dtype=np.int64)
+    other = owner[p] != owner[q]
+    p, q = p[other], q[other]
+    if not len(p):
         return {}
-    p, q = np.r_[pairs[:, 0], pairs[:, 1]], np.r_[pairs[:, 1], pairs[:, 0]]  # each way round
     gap = np.abs(np.einsum("nd,nd->n", centres[p] - tri[q, 0], normal[q]))
     opposed = np.abs(np.einsum("nd,nd->n", normal[p], normal[q])) > 0.99  # facets are not oriented
     # barycentric coordinates of the centroid of p in triangle q (projected on its plane)
