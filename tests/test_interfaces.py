@@ -385,7 +385,7 @@ def test_the_meshing_page_example_runs_and_its_parts_share_nodes(tmp_path, monke
 
 # ------------------------------------------------------------------------------------------ preload
 
-def _bolted_plates():
+def _bolted_plates(join: bool = True):
     """A square shank (2a x 2a) through two plates (a square tube 6a wide with a 4a hole, so the shank
     touches nothing but the heads), between a head and a nut that are 1e4 times stiffer; the shank is
     cut at mid-length by a pretension section (parts shank_lower / shank_upper).  Orthotropic
@@ -403,7 +403,9 @@ def _bolted_plates():
              "shank_lower": np.flatnonzero(shank & (c[2] < L / 2)), "shank_upper": np.flatnonzero(shank & (c[2] > L / 2)),
              "plate_1": np.flatnonzero(tube & (c[2] < L / 2)), "plate_2": np.flatnonzero(tube & (c[2] > L / 2))}
     d = domain_of(MeshTet(m.p, np.ascontiguousarray(m.t[:, keep])), parts, {})
-    return mesh_mod.join(d, {"bolt": mesh_mod.Joint("section", parts=("shank_lower", "shank_upper"))}), a, L
+    if join:
+        d = mesh_mod.join(d, {"bolt": mesh_mod.Joint("section", parts=("shank_lower", "shank_upper"))})
+    return d, a, L
 
 
 def _uniaxial(name, e, alpha):
@@ -448,3 +450,22 @@ def test_bolt_preload_and_its_change_under_a_uniform_temperature(order):
     assert heated.meta["preload"]["bolt"]["force_N"] == pytest.approx(expected, rel=1e-3)
     assert axial(heated, ["plate_1", "plate_2"]) == pytest.approx(-heated.meta["preload"]["bolt"]["force_N"], rel=1e-6)
     assert heated.equilibrium["relative"] < 1e-5  # round-off grown by the 1e4 stiffness contrast (measured 2e-7)
+
+
+def test_preload_through_a_workflow(tmp_path):
+    """The bolted plates as a Gmsh file and a workflow: [interfaces] kind = 'section' and
+    stages.stress.preload; the summary lists the bolt at its preload (no other load)."""
+    from pipeline.flow import runner
+
+    d, _, _ = _bolted_plates(join=False)
+    path = meshes.write_gmsh(meshes.to_meshio(d.mesh, d.parts, {}), tmp_path / "bolt.msh")
+    lines = ["[mesh]", f'file = "{path.as_posix()}"', 'unit = "m"', "[parts]"]
+    lines += [f'{p} = {{ material = "steel_304" }}' for p in sorted(d.parts)]
+    lines += ["[interfaces.bolt]", 'kind = "section"', 'parts = ["shank_lower", "shank_upper"]',
+              "[stages.stress]", 'kind = "stress"', "order = 1", 'supports = { free = { kind = "minimal" } }',
+              'preload = { bolt = "4 kN" }', "[output]", f'folder = "{(tmp_path / "out").as_posix()}"',
+              "figures = false", "report = false", "vtu = false"]
+    (tmp_path / "w.toml").write_text("\n".join(lines) + "\n")
+    record = runner.run(tmp_path / "w.toml", store=tmp_path / "s")
+    bolt = record["stages"]["stress"]["bolts"]["bolt"]
+    assert bolt["preload_N"] == 4000.0 and bolt["force_N"] == pytest.approx(4000.0, rel=1e-9)
