@@ -149,8 +149,11 @@ def _singular_nodes(domain, support_surfaces: list[str]) -> set[int]:
     for s in support_surfaces:
         if s in domain.surfaces:
             nodes.update(np.unique(domain.mesh.facets[:, domain.surfaces[s]]).tolist())
-    boundary = set(np.unique(domain.mesh.facets[:, domain.boundary_facets()]).tolist())
-    for facets in domain.interfaces.values():
+    joined = [f for c in domain.contacts.values() for f in c.facets] + [f for t in domain.ties.values() for f in t.facets]
+    joined = np.concatenate(joined) if joined else np.zeros(0, dtype=np.int64)
+    outer = np.setdiff1d(domain.boundary_facets(), joined)  # split and tied faces are still joined
+    boundary = set(np.unique(domain.mesh.facets[:, outer]).tolist())
+    for facets in list(domain.interfaces.values()) + ([joined] if len(joined) else []):
         nodes.update(set(np.unique(domain.mesh.facets[:, facets]).tolist()) & boundary)
     return nodes
 
