@@ -613,7 +613,7 @@ def join(domain: Domain, joints: dict[str, Joint], where: str = "interfaces") ->
                 problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' already share nodes on their interface "
                                 "(bonded); a tie is for parts meshed apart; use kind = 'contact' for a conductance")
                 continue
-            split[name] = (pair, facets)
+            split[name] = (tuple(joint.parts) if joint.parts else pair, facets)  # side a: the first part named
             continue
         found = touching.pop(pair, None)
         if found is None:
