@@ -22,6 +22,11 @@ class TemperatureField:
     probes: probe name -> temperature [K].  loads: per-part power records (W and W/m^3).
     adiabatic: surfaces with no boundary condition.  solver: how the system was solved.
     notices: cautions found while solving.  domain_hash: content hash of the mesh file.
+    interfaces: per contact {"name", "parts", "conductance_W_per_m2K", "area_m2", "heat_W" (from the
+    first part to the second), "mean_drop_K" (area mean of T_a - T_b), "max_drop_K" (largest at a node)}.
+    cavities: per cavity {"name", "temperature_K" (the air), "films_W" (surface -> heat into the air),
+    "from_solids_W", "ventilation_W" (m_dot c_p (T_air - T_in)), "ventilation_W_per_K", "inlet_K"}.
+    Cavity films are in ``balance`` with kind "cavity"; contacts are internal and are not.
     """
 
     temperature: np.ndarray
@@ -36,6 +41,8 @@ class TemperatureField:
     notices: tuple[str, ...] = ()
     domain_hash: str = ""
     meta: dict = field(default_factory=dict)
+    interfaces: tuple[dict, ...] = ()
+    cavities: tuple[dict, ...] = ()
 
     @property
     def at_vertices(self) -> np.ndarray:
@@ -61,6 +68,7 @@ class TemperatureField:
             "balance": list(self.balance), "probes": self.probes, "loads": list(self.loads),
             "adiabatic": list(self.adiabatic), "solver": self.solver.to_dict(),
             "notices": list(self.notices), "domain_hash": self.domain_hash, "meta": self.meta,
+            "interfaces": list(self.interfaces), "cavities": list(self.cavities),
         }
         json.dumps(meta, allow_nan=False)  # fails early if anything is not plain data
         return {"temperature": self.temperature}, meta
@@ -74,6 +82,7 @@ class TemperatureField:
             parts=meta["parts"], balance=tuple(meta["balance"]), probes=meta["probes"],
             loads=tuple(meta["loads"]), adiabatic=tuple(meta["adiabatic"]), solver=SolveRecord(**solver),
             notices=tuple(meta["notices"]), domain_hash=meta["domain_hash"], meta=meta.get("meta", {}),
+            interfaces=tuple(meta.get("interfaces", ())), cavities=tuple(meta.get("cavities", ())),
         )
 
     def __repr__(self) -> str:

@@ -59,7 +59,8 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             if not Path(section.file).is_file():
                 raise errors.MeshError(f"{path}: {key}.file: mesh file not found: {section.file} (a path relative "
                                        "to the workflow file)")
-            domains[k] = _load_mesh(Path(section.file), section.unit)
+            domains[k] = _joined(_load_mesh(Path(section.file), section.unit), workflow, path,
+                                 strict=section is workflow.mesh)
         return domains[k]
 
     if workflow is None:  # the mesh or the parts table itself is unusable: nothing to check names against
@@ -126,6 +127,15 @@ def _load_mesh(file: Path, unit: str) -> mesh_mod.Domain:
         while len(_MESHES) > 4:
             _MESHES.pop(next(iter(_MESHES)))
     return _MESHES[k]
+
+
+def _joined(domain: mesh_mod.Domain, workflow, path: Path, strict: bool) -> mesh_mod.Domain:
+    """The domain with the workflow's [interfaces] applied (split contacts, ties); on a mesh other than
+    the workflow's own, only the joints whose parts it has."""
+    joints = {name: mesh_mod.Joint(j.kind, tuple(j.parts) if j.parts else None, j.surface)
+              for name, j in workflow.interfaces.items()
+              if strict or (set(j.parts or ()) <= set(domain.parts) and (j.surface is None or j.surface in domain.surfaces))}
+    return mesh_mod.join(domain, joints, f"{path}: interfaces") if joints else domain
 
 
 def _order(workflow) -> list[str]:

@@ -135,6 +135,14 @@ def upstream(ctx: Context, source: str, result_type, where: str) -> StagePlan:
     return ctx.planned[source]
 
 
+def interface_inputs(ctx: Context, domain) -> dict:
+    """The workflow's [interfaces] as key inputs of a stage on ``domain`` (they change its mesh: split
+    contacts, ties, conductances); nothing when the workflow has none, so other keys stay as they were."""
+    used = {n: j.model_dump() for n, j in sorted(ctx.workflow.interfaces.items())
+            if n in domain.contacts or n in domain.ties or set(j.parts or ()) <= set(domain.parts)}
+    return {"interfaces": used} if used else {}
+
+
 def finish(plan: StagePlan, where: str, stage) -> StagePlan:
     """Plain key inputs (as summary.json holds them) and the key."""
     from ..flow import store

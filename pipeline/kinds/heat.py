@@ -9,7 +9,7 @@ from pydantic import Field
 from .. import errors
 from ..fields import TemperatureField
 from ..flow.workflow import (Emissivity, FilmCoefficient, Generation, HeatFluxDensity, Power, Strict, Temperature,
-                             MemoryLimit, SolverMethod, quantity)
+                             MemoryLimit, SolverMethod, quantity)  # noqa: I001
 from ..model import finishes
 from ..model.units import celsius
 from ..notices import Notice
@@ -42,6 +42,13 @@ class FluxSection(Strict):
     total: Power | None = Field(default=None, description="into the body, spread over the surface")
 
 
+class CavitySection(Strict):
+    films: dict[str, FilmCoefficient] = Field(description="film coefficient of a surface to the enclosed air")
+    ventilation: quantity("W/K", ge=0) = Field(default=0.0, description="m_dot c_p of the air flowing through; "
+                                               "0: sealed")
+    inlet: Temperature = Field(default=293.15, description="temperature of the incoming air")
+
+
 class HeatStage(Strict):
     kind: Literal["heat"]
     order: Literal[1, 2] = Field(default=1, description="element order")
@@ -54,6 +61,8 @@ class HeatStage(Strict):
     convection: dict[str, ConvectionSection] = Field(default_factory=dict)
     radiation: dict[str, RadiationSection] = Field(default_factory=dict)
     fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="fixed temperature; not combined with another condition on the same surface")
+    cavities: dict[str, CavitySection] = Field(default_factory=dict, description="enclosed air as an unknown "
+                                               "temperature: its films' net exchange balances the ventilation")
     max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most (nonlinear problems)")
     adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
                                  "planes, insulation): not warned about")
@@ -72,7 +81,11 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
                     for s, c in stage.convection.items()},
         radiation=_radiation(stage, where, problems),
         fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
-        memory_limit=stage.memory_limit, max_iterations=stage.max_iterations)
+        memory_limit=stage.memory_limit, max_iterations=stage.max_iterations,
+        contacts={n: j.heat_conductance for n, j in ctx.workflow.interfaces.items()
+                  if n in domain.contacts and j.kind != "section"},
+        tied=tuple(n for n, j in ctx.workflow.interfaces.items() if n in domain.contacts and j.kind == "section"),
+        cavities={n: heat.Cavity(dict(c.films), c.ventilation, c.inlet) for n, c in stage.cavities.items()})
     problems += [errors.unknown_name("surface", a, domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in domain.surfaces]
     base.checked(heat.check, domain, spec, where, problems)
@@ -80,7 +93,7 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
     inputs = ctx.base_inputs(NAME, heat.STAGE_VERSION) | {
         "options": stage.model_dump(exclude={"materials", "memory_limit"}),
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
-        "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes}
+        "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes} | base.interface_inputs(ctx, domain)
     return base.StagePlan(name, NAME, domain, spec, inputs, materials=names)
 
 
@@ -114,6 +127,8 @@ def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
         "adiabatic_surfaces": list(field.adiabatic),
         "adiabatic_intended": list(plan.inputs["options"].get("adiabatic", [])),
         "solver": field.solver.to_dict() | {"history": []},
+        "interfaces": [dict(r) for r in field.interfaces],
+        "cavities": [dict(c, temperature_degC=round(celsius(c["temperature_K"]), 4)) for c in field.cavities],
         "notices": [str(n) for n in found],
         "notice_records": [Notice.of(n).to_dict() for n in found],
     }
@@ -165,6 +180,11 @@ def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
             out.append(Notice("heat.over_limit", f"part {part} reaches {s['max']:.1f} degC, above its limit "
                               f"{limits[part]:.1f} degC", name,
                               {"part": part, "max_degC": s["max"], "limit_degC": limits[part]}))
+    for r in heat.supplying(entry["heat_balance_W"]):
+        out.append(Notice("heat.ambient_supplies", f"surface '{r['name']}' ({r['kind']} to a fixed ambient) supplies "
+                          f"{r['heat_in_W']:+.4g} W to the solids; if it faces enclosed air, model the air as a "
+                          "cavity (stages.NAME.cavities), whose temperature follows from its balance", name,
+                          {"surface": r["name"], "kind": r["kind"], "heat_in_W": r["heat_in_W"]}))
     out += [Notice.of(n).at(name) for n in entry.get("notice_records", [])]
     return out
 
@@ -182,6 +202,16 @@ def report(entry, context: base.OutputContext) -> list[str]:
         [[r["kind"], r["name"], f"{r['heat_in_W']:+.5g}"] for r in entry["heat_balance_W"]]))
     out.append(f"<p>Relative imbalance {entry['relative_imbalance']:.1e}. Adiabatic surfaces: "
                f"{escape(', '.join(entry['adiabatic_surfaces']) or 'none')}.</p>")
+    if entry.get("interfaces"):
+        out.append("<p>Interfaces with a contact conductance (heat from the first part to the second):</p>" + table(
+            ["interface", "parts", "h_c [W/(m^2*K)]", "area [mm^2]", "heat [W]", "mean drop [K]", "largest drop [K]"],
+            [[r["name"], " / ".join(r["parts"]), f"{r['conductance_W_per_m2K']:.4g}", f"{r['area_m2'] * 1e6:.4g}",
+              f"{r['heat_W']:+.4g}", f"{r['mean_drop_K']:.4g}", f"{r['max_drop_K']:.4g}"] for r in entry["interfaces"]]))
+    if entry.get("cavities"):
+        out.append("<p>Enclosed air:</p>" + table(
+            ["cavity", "air [degC]", "from the solids [W]", "ventilation [W]"],
+            [[c["name"], f"{c['temperature_degC']:.2f}", f"{c['from_solids_W']:+.4g}", f"{c['ventilation_W']:+.4g}"]
+             for c in entry["cavities"]]))
     if entry.get("probes_degC"):
         out.append(table(["probe", "temperature [degC]"], [[p, f"{t:.2f}"] for p, t in entry["probes_degC"].items()]))
     return out
@@ -192,6 +222,10 @@ def console(entry) -> list[str]:
              for part, s in entry["parts_degC"].items()]
     lines += [f"  probe {probe:<10} {t:8.2f} degC" for probe, t in entry["probes_degC"].items()]
     lines += [f"  {r['kind']:<18} {r['name']:<16} {r['heat_in_W']:+10.4f} W" for r in entry["heat_balance_W"]]
+    lines += [f"  interface {r['name']:<14} {r['heat_W']:+10.4f} W  drop mean {r['mean_drop_K']:.3f} K, "
+              f"largest {r['max_drop_K']:.3f} K" for r in entry.get("interfaces", [])]
+    lines += [f"  cavity {c['name']:<17} air {c['temperature_degC']:8.2f} degC; from the solids "
+              f"{c['from_solids_W']:+.3g} W, ventilation {c['ventilation_W']:+.3g} W" for c in entry.get("cavities", [])]
     lines.append(f"  relative imbalance {entry['relative_imbalance']:.1e}; "
                  f"adiabatic: {', '.join(entry['adiabatic_surfaces']) or 'none'}")
     return lines
@@ -205,4 +239,8 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
         out |= {f"{name}.{part}.{k}_degC": s[k] for k in ("max", "mean", "min")}
     out |= {f"{name}.probes.{p}_degC": t for p, t in entry.get("probes_degC", {}).items()}
     out[f"{name}.heat_in_W"] = entry.get("heat_in_W")
+    for r in entry.get("interfaces", []):
+        out |= {f"{name}.interfaces.{r['name']}.heat_W": r["heat_W"],
+                f"{name}.interfaces.{r['name']}.mean_drop_K": r["mean_drop_K"]}
+    out |= {f"{name}.cavities.{c['name']}.temperature_degC": c["temperature_degC"] for c in entry.get("cavities", [])}
     return out

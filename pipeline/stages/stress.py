@@ -3,7 +3,7 @@
 Weak form: find u with the supports' constraints such that for every admissible v
     int eps(v) : C eps(u) dV + sum_spring int k u.v dA
         = int eps(v) : C alpha (T - T_ref) dV + int b.v dV + sum_pressure int -p n.v dA + sum_force int t.v dA
-Parts that share nodes are bonded.  C and alpha are constant per part (in model coordinates, from the
+Parts that share nodes are bonded; split interfaces and ties keep their sides together (``ties``).  C and alpha are constant per part (in model coordinates, from the
 part's material axes), so the thermal mismatch at a bonded interface is never averaged away.
 Units: u [m], sigma and p [Pa], k [N/m^3], b [N/m^3], forces [N], T [K].
 """
@@ -20,7 +20,8 @@ import scipy.sparse as sp
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
-from . import constitutive, features, fem, kernels, recovery, solvers, supports
+from ..model.mesh import touching_problems
+from . import constitutive, features, fem, kernels, recovery, solvers, supports, ties
 from .supports import Support
 
 STAGE_VERSION = 2
@@ -40,6 +41,7 @@ class StressSpec:
     probes: name -> (x, y, z) [m].  lines: name -> (start (x, y, z) [m], end [m], number of points >= 2).
     order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
     memory_limit: bytes the stage may use (default: what is available); checked before assembly.
+    preload: pretension section (a "section" joint) -> bolt preload [N], tension positive (``ties.preloaded``).
     """
 
     materials: Mapping[str, Material]
@@ -53,6 +55,7 @@ class StressSpec:
     solver: str = "auto"
     memory_limit: float | None = None
     lines: Mapping[str, tuple] = field(default_factory=dict)
+    preload: Mapping[str, float] = field(default_factory=dict)
 
 
 def check(domain, spec: StressSpec, where: str = "stress") -> None:
@@ -93,6 +96,15 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
     fem.check_probes(domain, spec.probes, where, problems)
     problems += _line_problems(spec.lines, where)
+    problems += touching_problems(domain, where)  # parts meshed apart need a joint first
+    problems += [errors.unknown_name("pretension section", n, domain.contacts, f"{where}.preload")
+                 for n in spec.preload if n not in domain.contacts]
+    problems += [f"{where}.preload.{n}: a preload must be a finite force [N], got {v}" for n, v in spec.preload.items()
+                 if not np.isfinite(v)]
+    if spec.preload and any(s.kind == "contact" for s in spec.supports.values()):
+        problems.append(f"{where}: bolt preloads are found by superposing linear solutions, which a contact support "
+                        "(it lifts off: not linear) does not allow; use a fixed, symmetry or spring support with "
+                        "preload, or drop the preload")
     if spec.order in fem.ORDERS and not problems:
         try:
             solvers.check_memory(3 * fem.unknowns(domain, spec.order), spec.order, 3, spec.solver, spec.memory_limit,
@@ -127,6 +139,8 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     space, geom = fem.space(domain, spec.order), fem.geometry(domain)
     n = 3 * space.N
     rows, pdofs, xyz = supports.gather(domain, space, spec.supports, where)
+    tie = ties.continuity(domain, space, domain.contacts, where)  # split interfaces and ties move together
+    rows, tie = ties.move_rows(tie, rows, {n for n, s in spec.supports.items() if s.kind == "minimal"}, where)
     spring_points = [space.facet_dofs(domain.surfaces[name]) for name, s in spec.supports.items() if s.kind == "spring"]
     supports.free_motions(domain, rows, xyz, np.concatenate(spring_points) if spring_points else
                           np.zeros(0, dtype=np.int64), where)
@@ -168,8 +182,15 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record, constraints, held = _solve_supported(domain, K, f_thermal + f_mech, rows, pdofs, xyz,
-                                                              constraints, space, spec, where)
+    if spec.preload:  # linear superposition of the shortenings (ties.preloaded): no contact supports
+        solve_ = lambda A, b, c: _solve_constrained(A, b, c, space, spec)  # noqa: E731
+        u, residual, record, bolts = ties.preloaded(K, f_thermal + f_mech, constraints, tie, domain, space,
+                                                    dict(spec.preload), solve_)
+        held = {}
+    else:
+        bolts = {}
+        u, residual, record, constraints, held = _solve_supported(domain, K, f_thermal + f_mech, rows, pdofs, xyz,
+                                                                  constraints, space, spec, where, tie)
     del K
     reactions = constraints.reactions(residual, pdofs)
     for name, ks in springs.items():
@@ -193,7 +214,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
         temperature=recovery.at_points(domain, spec.order, load) if load is not None else np.zeros(0),
         reference=np.asarray(load.reference, float) if load is not None else np.zeros(0),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
-              "stress_order": "xx, yy, zz, yz, xz, xy",
+              "stress_order": "xx, yy, zz, yz, xz, xy", "preload": bolts,
               "recovery": "L2 projection within each part (nodal peaks; quadrature maximum beside)"},
     )
 
@@ -219,12 +240,19 @@ def _solve_constrained(K, f, constraints, space, spec):
     return T @ ul, T @ (Kl @ ul - fl), record
 
 
-def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, where):
-    """The constrained solve, repeated by the contact active set when a support is of kind contact.
-    Returns u, residual, solve record, the final constraints and the contact records."""
+def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, where, tie):
+    """The constrained solve (tied dofs following their partners, ``tie``), repeated by the contact
+    active set when a support is of kind contact.  Returns u, residual, solve record, the final
+    constraints and the contact records."""
+    reduced, load = tie.reduce(K), tie.load(f)
+
+    def solve(c):
+        w, r, record = _solve_constrained(reduced, load, ties.with_tied(c, tie), space, spec)
+        return tie.expand(w), r, record
+
     surfaces = supports.normal_surfaces(domain, space, spec.supports, ("contact",), where)
     if not surfaces:
-        return (*_solve_constrained(K, f, constraints, space, spec), constraints, {})
+        return (*solve(constraints), constraints, {})
     springs = [space.facet_dofs(domain.surfaces[n]) for n, s in spec.supports.items() if s.kind == "spring"]
     spring_points = np.concatenate(springs) if springs else np.zeros(0, dtype=np.int64)
 
@@ -235,8 +263,7 @@ def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, w
             raise errors.PhysicsError([p + " (the contact supports lift off where they would pull, and what is left "
                                        "does not hold the body)" for p in exc.problems]) from None
 
-    return supports.contact_solve(lambda c: _solve_constrained(K, f, c, space, spec), rows, pdofs, len(f),
-                                  surfaces, motion, where)
+    return supports.contact_solve(solve, rows, pdofs, len(f), surfaces, motion, where)
 
 
 def _support_records(domain, space, given, constraints, residual, pdofs, held, reactions, where):

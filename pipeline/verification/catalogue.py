@@ -104,6 +104,24 @@ def composite_checks(run, _):
     ]
 
 
+def contact_checks(run, _):
+    h, f = heat_stage(run), run.result("heat")
+    l1, l2, area = 3e-3, 1.6e-3, 1e-4
+    c1, c2 = h.convection["xmin"], h.convection["xmax"]
+    k1, k2 = run.material("plate").conductivity[0], run.material("board").conductivity[0]
+    r = run.workflow.interfaces["joint"].resistance
+    flux = (c1.ambient - c2.ambient) / (1 / c1.film_coefficient + l1 / k1 + r + l2 / k2 + 1 / c2.film_coefficient)
+    (joint,) = f.interfaces
+    src = f"{INC}, sec. 3.1.4 (composite wall with thermal contact resistance)"
+    why = ("each layer's profile is linear, with a jump at the split interface, inside the split P1 space: exact, "
+           "round-off remains")
+    return [
+        Check("heat in through xmin", "W", flux * area, src, ROUND_OFF, why, balance(f, "xmin")),
+        Check("heat through the contact", "W", flux * area, src, ROUND_OFF, why, joint["heat_W"]),
+        Check("temperature drop at the contact", "K", flux * r, src, ROUND_OFF, why, joint["mean_drop_K"]),
+    ]
+
+
 def fin_mesh(work, n):
     mk.box(work / "heat_fin.msh", mk.planes(0, 0.05, n), mk.planes(0, 5e-3, 2), mk.planes(0, 5e-3, 2),
            surfaces={"base": ["xmin"], "air": ["xmax", "ymin", "ymax", "zmin", "zmax"]})
@@ -479,6 +497,8 @@ CASES = {c.name: c for c in [
           generation_mesh, generation_checks),
     _case("heat_composite", "composite wall, convection on both faces (two parts)", "heat_composite.toml",
           composite_mesh, composite_checks),
+    _case("heat_contact", "composite wall with a contact resistance (split interface)", "heat_contact.toml",
+          composite_mesh, contact_checks),
     _case("heat_fin", "pin fin with a convective tip (P2)", "heat_fin.toml", fin_mesh, fin_checks,
           SIZES(40, 40, 80)),
     _case("heat_cylinder", "hollow cylinder, quarter (P2)", "heat_cylinder.toml", cylinder_mesh, cylinder_checks,
