@@ -69,8 +69,7 @@ def colormap(kind: str):
     if kind == "temperature":
         cmap = ListedColormap(mpl.colormaps["inferno"](np.linspace(0.15, 1.0, 256)), name="thermochain_temperature")
     elif kind == "stress":
-        cmap = mpl.colormaps["cividis"].copy()
-        cmap.set_over(OVER)
+        cmap = mpl.colormaps["cividis"].with_extremes(over=OVER)
     elif kind == "difference":
         cmap = _difference_map()
     else:
