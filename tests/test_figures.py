@@ -111,13 +111,17 @@ def test_section_runs_through_the_middle_of_the_board_and_shows_it(housing, tmp_
 def test_stress_figure_marks_the_reported_peak_and_keeps_singular_points_over_range(housing, tmp_path, part):
     st = housing.record["stages"]["stress"]
     sing = singular_nodes(housing.sdomain, st["support_surfaces"])
-    rec = figures.stress_part(tmp_path / f"{part}.png", housing.sdomain, housing.stress, part, sing)
     reported = st["parts"][part]
-    assert rec["peak_at_m"] == pytest.approx(reported["von_mises_max_at_m"], abs=1e-12)
-    assert rec["peak_MPa"] == pytest.approx(reported["von_mises_max_Pa"] / 1e6, rel=1e-12)
-    # colour range: the part's own recovered von Mises on the surface drawn, singular vertices left out
+    # the quantity its safety factor reads: largest principal stress if brittle, else von Mises
+    brittle = reported["criterion"].startswith("brittle")
+    rec = figures.stress_part(tmp_path / f"{part}.png", housing.sdomain, housing.stress, part, sing,
+                              quantity="principal" if brittle else "von_mises")
+    key = "principal_max" if brittle else "von_mises_max"
+    assert rec["peak_at_m"] == pytest.approx(reported[f"{key}_at_m"], abs=1e-12)
+    assert rec["peak_MPa"] == pytest.approx(reported[f"{key}_Pa"] / 1e6, rel=1e-12)
+    # colour range: the part's own recovered stress on the surface drawn, singular vertices left out
     ids, values = housing.stress.nodal[part]
-    vm = constitutive.von_mises(values.T) / 1e6
+    vm = (constitutive.principal(values.T)[:, 0] if brittle else constitutive.von_mises(values.T)) / 1e6
     drawn = figures.skin(housing.sdomain.points, housing.sdomain.tetrahedra[housing.sdomain.parts[part]])[0]
     # (the drawn piece: the one holding the peak; the others' values are not in the range)
     piece = figures._pieces(np.concatenate([housing.sdomain.tetrahedra[housing.sdomain.parts[part]][:, :3],

@@ -10,6 +10,7 @@ and what it marked (peak values and positions [m]), so tests and the report can 
 from __future__ import annotations
 
 import os
+import textwrap
 import threading
 from pathlib import Path
 
@@ -144,8 +145,8 @@ def _figure(path: Path, image, title: str, subtitle: str, kind: str | None, clim
     with mpl.rc_context(style.rc()):
         fig = Figure(figsize=style.SIZE, dpi=style.DPI)
         fig.text(0.03, 0.955, title, fontsize=13, fontweight="bold", va="top")
-        fig.text(0.03, 0.905, subtitle, fontsize=9.5, color=style.MUTED, va="top")
-        ax = fig.add_axes((0.01, 0.03, 0.82, 0.84))
+        fig.text(0.03, 0.905, "\n".join(textwrap.wrap(subtitle, 118)), fontsize=9.5, color=style.MUTED, va="top")
+        ax = fig.add_axes((0.01, 0.03, 0.82, 0.80))
         ax.imshow(image)
         ax.set_axis_off()
         placed = []
@@ -297,26 +298,42 @@ temperature_cut = temperature_section
 
 
 # ----------------------------------------------------------------------------------------------- stress
-def part_von_mises(domain, sfield, part: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The part's recovered (nodal) von Mises stress [Pa]: point ids, values and positions [m]
-    (vertices, then P2 edge points)."""
+#: What a part's safety factor reads: von Mises for a ductile part, the largest principal stress for a
+#: brittle one (recovery's criteria); the figure of the part shows that quantity.
+QUANTITIES = {"von_mises": "von Mises stress", "principal": "largest principal stress"}
+
+
+def _side(view) -> str:
+    """Where a camera looking along -``view`` stands, in words ("from below", "from the +x side")."""
+    v = np.asarray(view, dtype=float)
+    i = int(np.argmax(np.abs(v)))
+    if i == 2:
+        return "from above" if v[2] > 0 else "from below"
+    return f"from the {'+' if v[i] > 0 else '-'}{'xy'[i]} side"
+
+
+def part_stress(domain, sfield, part: str, quantity: str = "von_mises") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The part's recovered (nodal) stress measure [Pa] ("von_mises" or "principal": the largest
+    principal stress): point ids, values and positions [m] (vertices, then P2 edge points)."""
     from ..stages import constitutive, fem
 
     ids, values = sfield.nodal[part]
     where = fem.space(domain, sfield.order).doflocs[:, ids].T if sfield.order > 1 else domain.points[ids]
-    return ids, constitutive.von_mises(values.T), where
+    measure = constitutive.von_mises(values.T) if quantity == "von_mises" else constitutive.principal(values.T)[:, 0]
+    return ids, measure, where
 
 
 def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | None = None,
-                strength: float | None = None) -> dict:
-    """von Mises stress [MPa] of one part (of its piece that holds the peak) on its own range, the peak
-    marked and labelled with its value, seen along the outward normal at the peak with what lies in
-    front of it cut away.
+                strength: float | None = None, quantity: str = "von_mises") -> dict:
+    """A part's stress [MPa] (``quantity``: "von_mises", or "principal" for a brittle part) on its own
+    range, on the piece of the part that holds the peak, the peak marked and labelled with its value,
+    seen along the outward normal at the peak with what lies in front of it clipped away.
 
     ``singular``: vertex ids at singular features (supports, edges of bonded interfaces).  The colour
     range then ends at the peak away from them, values above are drawn in the over-range colour, and
     that peak and the singular one get markers of their own (in two views when no one view shows both)."""
-    ids, vm, where = part_von_mises(domain, sfield, part)
+    ids, vm, where = part_stress(domain, sfield, part, quantity)
+    name = QUANTITIES[quantity]
     nv = len(domain.points)
     flagged = np.isin(ids, np.asarray(singular if singular is not None else [], dtype=int))
     i_peak = int(np.argmax(vm))
@@ -344,32 +361,38 @@ def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | No
         marks.append({"at": where[i_peak], "text": f"{vm[i_peak] / 1e6:.1f} MPa at a singular feature",
                       "style": "singular"})
     views = [_peak_view(domain.points, tri, normals, m["at"]) for m in marks]
-    if len(views) == 2 and np.dot(views[0][1], views[1][1]) > 0.8 and not views[1][2].any():
+    if len(views) == 2 and np.dot(views[0][1], views[1][1]) > 0.8:
         views = views[:1]  # one view shows both
     images, cut = [], False
-    for k, (view, _, front) in enumerate(views):
-        layers = [(_poly(domain.points, tri[~front], values), _colours("stress", clim))]
-        cut |= bool(front.any())
+    piece_mesh = _poly(domain.points, tri, values)
+    for k, (view, n, offset) in enumerate(views):
         mine = marks if len(views) == 1 else [marks[k]]
-        image, px, _ = _render(layers, view, [m["at"] for m in mine])
+        clipped = piece_mesh.clip(normal=n, origin=(mine[0]["at"] + offset * n) * 1e3)
+        cut |= clipped.n_cells < piece_mesh.n_cells
+        image, px, _ = _render([(clipped, _colours("stress", clim))], view, [m["at"] for m in mine])
         for m, xy in zip(mine, px):
             m["xy"] = (xy[0] + sum(i.shape[1] for i in images), xy[1])
         images.append(image)
     over = f"> {clim[1]:.0f}: singular" if peak_singular and drawn.max() > clim[1] else None
     sf = f"; strength {strength / 1e6:.0f} MPa" if strength else ""
-    piece = f" of the one of its {pieces} pieces holding the peak" if pieces > 1 else ""
-    _figure(path, np.concatenate(images, axis=1), f"von Mises stress of the {part}",
-            f"{clim[0]:.1f} to {clim[1]:.1f} MPa on the surface{piece}{sf}"
-            + ("; what lies in front of a peak is cut away" if cut else "")
-            + ("; two views" if len(views) == 2 else ""), "stress", clim, "von Mises [MPa]", marks, over)
-    return _record(path, clim, "MPa", part=part, peak_MPa=float(vm[i_peak] / 1e6), peak_at_m=where[i_peak].tolist(),
-                   peak_singular=peak_singular, calm_peak_MPa=float(vm[i_calm] / 1e6),
-                   calm_peak_at_m=where[i_calm].tolist(), views=[v[0].tolist() for v in views])
+    piece = f" of the piece holding the peak (1 of {pieces})" if pieces > 1 else ""
+    seen = " and ".join(("left " if len(views) == 2 and k == 0 else "right " if len(views) == 2 else "")
+                        + _side(v[0]) for k, v in enumerate(views))
+    title = name if name.startswith("von") else name[0].upper() + name[1:]
+    _figure(path, np.concatenate(images, axis=1), f"{title} of the {part}",
+            f"{clim[0]:.1f} to {clim[1]:.1f} MPa on the surface{piece}{sf}; seen {seen}"
+            + ("; what lies in front of a peak is clipped away" if cut else ""), "stress", clim, f"{name} [MPa]",
+            marks, over)
+    return _record(path, clim, "MPa", part=part, quantity=quantity, peak_MPa=float(vm[i_peak] / 1e6),
+                   peak_at_m=where[i_peak].tolist(), peak_singular=peak_singular,
+                   calm_peak_MPa=float(vm[i_calm] / 1e6), calm_peak_at_m=where[i_calm].tolist(),
+                   views=[v[0].tolist() for v in views])
 
 
 def _peak_view(points: np.ndarray, tri: np.ndarray, normals: np.ndarray, focus: np.ndarray):
     """A view of ``focus`` on a surface: the direction to the camera (the outward normal at its nearest
-    vertex, tilted towards the side it lies on), that normal, and the triangles in front of it."""
+    vertex, tilted towards the side of the surface it lies on), that normal, and how far in front of
+    ``focus`` [m] the surface may be clipped away (2 % of the surface's size)."""
     surface = np.unique(tri)
     near = _nearest(points, surface, focus)
     n = normals[np.any(tri == near, axis=1)].sum(axis=0)
@@ -378,9 +401,7 @@ def _peak_view(points: np.ndarray, tri: np.ndarray, normals: np.ndarray, focus: 
     side = (focus - centre) - np.dot(focus - centre, n) * n
     side = side / np.linalg.norm(side) if np.linalg.norm(side) > 0 else np.zeros(3)
     view = 2.0 * n + side + 0.4 * np.array([0.0, 0.0, np.sign(n[2]) or 1.0])
-    size = float(np.linalg.norm(np.ptp(points[surface], axis=0)))
-    front = (points[tri].mean(axis=1) - focus) @ n > 0.02 * size
-    return view, n, front
+    return view, n, 0.02 * float(np.linalg.norm(np.ptp(points[surface], axis=0)))
 
 
 def _pieces(tri: np.ndarray, n: int) -> np.ndarray:
