@@ -198,3 +198,27 @@ def test_tornado_bars_are_the_changes_of_the_sweeps_own_runs(tmp_path):
     assert pixels(tmp_path / "tornado.png").std() > 0.02
     rows[4]["status"] = "failed"  # no baseline run: no chart rather than a wrong one
     assert page.tornado(tmp_path, record, ["f"]) is None
+
+
+def test_stress_figure_fed_with_the_results_own_peak_flags(housing, tmp_path):
+    # the record issue 15's recovery gives per part and quantity, built here from the same singular
+    # vertices: the figure must then draw the same range and marks as from the vertex ids
+    st = housing.record["stages"]["stress"]
+    sing = singular_nodes(housing.sdomain, st["support_surfaces"])
+    by_ids = figures.stress_part(tmp_path / "a.png", housing.sdomain, housing.stress, "shell", sing)
+    flags = {"peak": by_ids["peak_MPa"] * 1e6, "at_m": by_ids["peak_at_m"], "near": {"code": "clamp_rim"},
+             "away": by_ids["calm_peak_MPa"] * 1e6, "away_at_m": by_ids["calm_peak_at_m"]}
+    by_flags = figures.stress_part(tmp_path / "b.png", housing.sdomain, housing.stress, "shell", flags=flags)
+    assert by_flags["range"] == pytest.approx(by_ids["range"], rel=1e-12)
+    assert by_flags["peak_singular"] and by_flags["calm_peak_at_m"] == pytest.approx(by_ids["calm_peak_at_m"])
+    calm = figures.stress_part(tmp_path / "c.png", housing.sdomain, housing.stress, "shell",
+                               flags=dict(flags, near=None))
+    assert not calm["peak_singular"] and calm["range"][1] == pytest.approx(calm["peak_MPa"], rel=1e-12)
+
+
+def test_line_records_skip_points_outside_and_convert_units(tmp_path):
+    records = [{"distance_m": 0.01 * i, "outside": i == 4, "temperature_K": 300.0 + i, "von_mises_Pa": 1e6 * i,
+                "principal_Pa": [2e6 * i, 0.0, -1e6]} for i in range(5)]
+    rec = figures.line_records(tmp_path / "l.png", "probe_line", records)
+    assert rec["ranges"]["temperature"] == pytest.approx((26.85, 29.85))
+    assert rec["ranges"]["largest principal"] == pytest.approx((0.0, 6.0)) and rec["length_m"] == pytest.approx(0.03)

@@ -324,14 +324,16 @@ def part_stress(domain, sfield, part: str, quantity: str = "von_mises") -> tuple
 
 
 def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | None = None,
-                strength: float | None = None, quantity: str = "von_mises") -> dict:
+                strength: float | None = None, quantity: str = "von_mises", flags: dict | None = None) -> dict:
     """A part's stress [MPa] (``quantity``: "von_mises", or "principal" for a brittle part) on its own
     range, on the piece of the part that holds the peak, the peak marked and labelled with its value,
     seen along the outward normal at the peak with what lies in front of it clipped away.
 
     ``singular``: vertex ids at singular features (supports, edges of bonded interfaces).  The colour
     range then ends at the peak away from them, values above are drawn in the over-range colour, and
-    that peak and the singular one get markers of their own (in two views when no one view shows both)."""
+    that peak and the singular one get markers of their own (in two views when no one view shows both).
+    ``flags``: the stress result's own judgement of this quantity's peak instead ({"peak", "at_m",
+    "near": None or a record, "away", "away_at_m"} [Pa, m]): the range then ends at "away"."""
     ids, vm, where = part_stress(domain, sfield, part, quantity)
     name = QUANTITIES[quantity]
     nv = len(domain.points)
@@ -355,7 +357,16 @@ def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | No
     keep = ~np.isin(surface, ids[flagged])
     clim = (float(drawn.min()), float(drawn[keep].max() if keep.any() else drawn.max()))
     peak_singular = bool(flagged[i_peak])
-    marks = [{"at": where[i_calm], "text": f"{vm[i_calm] / 1e6:.1f} MPa " + (
+    calm_at, calm_value = where[i_calm], vm[i_calm]
+    if flags is not None:
+        peak_singular = flags.get("near") is not None
+        if peak_singular and flags.get("away") is not None:
+            calm_at, calm_value = np.asarray(flags["away_at_m"]), flags["away"]
+            clim = (clim[0], float(calm_value / 1e6))
+        elif not peak_singular:
+            calm_at, calm_value = where[i_peak], vm[i_peak]
+            clim = (clim[0], float(drawn.max()))
+    marks = [{"at": calm_at, "text": f"{calm_value / 1e6:.1f} MPa " + (
         "away from singular features" if peak_singular else f"peak of the {part}")}]
     if peak_singular:
         marks.append({"at": where[i_peak], "text": f"{vm[i_peak] / 1e6:.1f} MPa at a singular feature",
@@ -385,7 +396,7 @@ def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | No
             marks, over)
     return _record(path, clim, "MPa", part=part, quantity=quantity, peak_MPa=float(vm[i_peak] / 1e6),
                    peak_at_m=where[i_peak].tolist(), peak_singular=peak_singular,
-                   calm_peak_MPa=float(vm[i_calm] / 1e6), calm_peak_at_m=where[i_calm].tolist(),
+                   calm_peak_MPa=float(calm_value / 1e6), calm_peak_at_m=np.asarray(calm_at).tolist(),
                    views=[v[0].tolist() for v in views])
 
 
@@ -586,6 +597,24 @@ def line_plot(path: Path, name: str, distance_m, quantities: dict[str, tuple[np.
         fig.savefig(path)
     ranges = {label: (float(np.min(v)), float(np.max(v))) for label, (v, _) in quantities.items()}
     return {"file": path.name, "line": name, "ranges": ranges, "length_m": float(s[-1] - s[0]) / 1e3}
+
+
+#: What a line plot shows from a stress result's line records: label, record key, unit, scale.
+LINE_QUANTITIES = (("temperature", "temperature_K", "degC", None), ("von Mises", "von_mises_Pa", "MPa", 1e-6),
+                   ("largest principal", "principal_Pa", "MPa", 1e-6))
+
+
+def line_records(path: Path, name: str, records: list[dict]) -> dict:
+    """A line plot from sampled records ({"distance_m", "outside", "temperature_K", "von_mises_Pa",
+    "principal_Pa" (largest first), ...} per point); points outside the model are left out."""
+    inside = [r for r in records if not r.get("outside")]
+    quantities = {}
+    for label, key, unit, scale in LINE_QUANTITIES:
+        got = [r.get(key) for r in inside]
+        if inside and all(v is not None for v in got):
+            v = np.asarray([g[0] if isinstance(g, (list, tuple)) else g for g in got], dtype=float)
+            quantities[label] = (celsius(v) if scale is None else v * scale, unit)
+    return line_plot(path, name, [r["distance_m"] for r in inside], quantities)
 
 
 def difference(path: Path, domain, values: np.ndarray, title: str, unit: str, cells: bool = False,
