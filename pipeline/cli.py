@@ -218,26 +218,13 @@ def _fmt(value) -> str:
 
 
 def _print_run(record: dict) -> None:
+    from . import kinds
+
     print(f"thermochain {record['thermochain']}: {record['workflow']} ({record['status']}, {record['seconds']:.1f} s)")
     for name, stage in record["stages"].items():
         print(f"stage {name} ({stage['kind']}): {stage['status']} - {stage['reason']}")
-        for part, f in stage.get("parts", {}).items():
-            sf = f["safety_factor"]
-            print(f"  {part:<16} von Mises max {f['von_mises_max_Pa'] / 1e6:9.2f} MPa at "
-                  f"{[round(c * 1e3, 2) for c in f['von_mises_max_at_m']]} mm; safety factor "
-                  f"{'n/a' if sf is None else f'{sf:.2f}'} ({f['criterion'].split(':')[0]})")
-        if "equilibrium" in stage:
-            print(f"  reactions {', '.join(f'{k} {[round(v, 3) for v in r]} N' for k, r in stage['reactions_N'].items())};"
-                  f" equilibrium {stage['equilibrium']['relative']:.1e}")
-        for part, s in stage.get("parts_degC", {}).items():
-            print(f"  {part:<16} min {s['min']:8.2f}  mean {s['mean']:8.2f}  max {s['max']:8.2f} degC")
-        for probe, t in stage.get("probes_degC", {}).items():
-            print(f"  probe {probe:<10} {t:8.2f} degC")
-        for r in stage.get("heat_balance_W", []):
-            print(f"  {r['kind']:<18} {r['name']:<16} {r['heat_in_W']:+10.4f} W")
-        if "relative_imbalance" in stage:
-            print(f"  relative imbalance {stage['relative_imbalance']:.1e}; "
-                  f"adiabatic: {', '.join(stage['adiabatic_surfaces']) or 'none'}")
+        for line in kinds.hook(stage["kind"], "console")(stage):
+            print(line)
         for note in stage.get("notices", []):
             print(f"  note: {note}")
     for w in record.get("warnings", []):
@@ -299,7 +286,7 @@ def _verify(args) -> int:
 COMMANDS["verify"] = _verify
 
 
-def _study(kind: str, args) -> int:
+def _study(study: str, args) -> int:
     """Run a sweep or a convergence study and print its summary (pipeline/studies)."""
     import time
 
@@ -311,7 +298,7 @@ def _study(kind: str, args) -> int:
         if not args.quiet:
             print(f"[{time.perf_counter() - start:7.2f} s] {line}", file=sys.stderr, flush=True)
 
-    if kind == "sweep":
+    if study == "sweep":
         record = sweep.run(args.workflow, args.sweep, args.set, args.store, args.out, args.scheduler, args.workers,
                            args.threads, args.serial, progress=progress)
         text = sweep.describe(record)

@@ -2,7 +2,8 @@
 
 ``InputError`` and ``MeshError`` (bad input) give exit status 2; ``PhysicsError``, ``SolverError`` and
 ``StoreError`` (a run that cannot succeed) give exit status 1.  Each carries a list of problems so that every input
-error is reported at once, not only the first.
+error is reported at once, not only the first: ``records`` holds them as ``Problem`` records (code,
+where, message, data) for code to compare; ``problems`` holds the same as lines of text for people.
 """
 
 from __future__ import annotations
@@ -10,15 +11,23 @@ from __future__ import annotations
 import difflib
 from collections.abc import Iterable
 
+from .notices import Problem
+
 
 class ThermochainError(Exception):
-    """Base class; ``problems`` holds one line per problem found."""
+    """Base class; ``records`` holds one ``Problem`` per problem found, ``problems`` their text."""
 
     exit_status = 1
 
-    def __init__(self, problems: str | Iterable[str]):
-        self.problems = [problems] if isinstance(problems, str) else list(problems)
+    def __init__(self, problems: "str | Problem | Iterable[str | Problem]"):
+        items = [problems] if isinstance(problems, (str, Problem)) else list(problems)
+        self.records: list[Problem] = list({str(r): r for r in map(Problem.of, items)}.values())  # once each
         super().__init__("\n".join(self.problems))
+
+    @property
+    def problems(self) -> list[str]:
+        """One line of text per problem, as the command line prints them."""
+        return [str(p) for p in self.records]
 
 
 class InputError(ThermochainError):
@@ -61,3 +70,12 @@ def unknown_name(kind: str, name: str, valid: Iterable[str], where: str) -> str:
     valid = sorted(valid)
     listed = ", ".join(valid) if valid else "none"
     return f"{where}: {kind} '{name}' does not exist{closest(name, valid)}; {kind}s there are: {listed}"
+
+
+#: code of the problem "a part has no material" (reported once by the runner, not by every stage)
+NO_MATERIAL = "stage.no_material"
+
+
+def no_material(part: str, where: str) -> Problem:
+    """The problem of a part that a stage finds without a material."""
+    return Problem(NO_MATERIAL, f"part '{part}' has no material", where, {"part": part})

@@ -24,6 +24,8 @@ from pipeline.flow import runner, store as store_mod
 from pipeline.flow import workflow as wf
 from pipeline.model import mesh as mesh_mod
 from pipeline.stages import heat
+from pipeline.kinds.stress import SINGULAR_PEAK
+from pipeline.notices import Notice
 from pipeline.studies import convergence, linear, sweep
 
 ROOT = Path(__file__).parent.parent
@@ -235,10 +237,14 @@ def test_quantities_that_do_not_converge_get_no_gci(phi, verdict):
 
 
 def test_a_stress_peak_on_a_support_is_flagged_singular_even_when_it_looks_monotone():
-    record = {"levels": [{"warnings": ["stress: the peak von Mises of shell lies on a support or on the edge of a "
-                                       "bonded interface, where stresses are singular"]}]}
+    # the study reads the flag's record (its code and part), never its wording
+    flag = Notice(SINGULAR_PEAK, "any wording", "stress", {"part": "shell"})
+    record = {"levels": [{"warning_records": [flag.to_dict()]}]}
     q = convergence._quantity("stress.shell.von_mises_max_MPa", [1.0, 0.5, 0.25], [10.0, 14.0, 16.0], record)
     assert q["verdict"] == "singular" and q["gci_fine"] is None and q["order"] == pytest.approx(1.0)
+    other = {"levels": [{"warning_records": [Notice(SINGULAR_PEAK, "", "stress", {"part": "board"}).to_dict()]}]}
+    assert convergence._quantity("stress.shell.von_mises_max_MPa", [1.0, 0.5, 0.25], [10.0, 14.0, 16.0],
+                                 other)["verdict"] != "singular"
 
 
 def test_uniform_refinement_keeps_parts_and_surfaces(tmp_path):

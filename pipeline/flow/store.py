@@ -57,7 +57,7 @@ def key(inputs: dict) -> str:
     return hashlib.sha256(canonical({"store_schema": SCHEMA, **inputs}).encode()).hexdigest()
 
 
-def _sha(path: Path) -> str:
+def file_hash(path: Path) -> str:
     h = hashlib.sha256()
     with path.open("rb") as f:
         for block in iter(lambda: f.read(1 << 20), b""):
@@ -84,6 +84,10 @@ class Store:
     def _place(self, kind: str, k: str) -> Path:
         return self.root / kind / k
 
+    def holds(self, kind: str, k: str) -> bool:
+        """Whether an entry for this key is in the store (without verifying it)."""
+        return (self._place(kind, k) / "manifest.json").is_file()
+
     @contextmanager
     def lock(self, kind: str, k: str):
         """Exclusive lock for one key: a second run waits here, then finds the entry and reuses it."""
@@ -109,7 +113,7 @@ class Store:
         try:
             manifest = json.loads(manifest_path.read_text())
             for name, digest in manifest["files"].items():
-                if _sha(place / name) != digest:
+                if file_hash(place / name) != digest:
                     return f"the stored entry was damaged ({name} fails its checksum) and is recomputed"
             meta = json.loads((place / "meta.json").read_text())
             with np.load(place / "arrays.npz", allow_pickle=False) as data:

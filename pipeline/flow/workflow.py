@@ -15,11 +15,12 @@ import typing
 from pathlib import Path
 from typing import Annotated, Literal, Union
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, create_model
 
 from .. import errors
 from ..model.finishes import FINISHES
 from ..model.units import to_si
+from ..stages import solvers
 
 
 def quantity(unit: str, **bounds):
@@ -57,7 +58,10 @@ Force = quantity("N")
 SpringStiffness = quantity("N/m**3", gt=0)
 Acceleration = quantity("m/s**2")
 LengthUnit = Literal["m", "cm", "mm", "um", "in"]
-KINDS = ("heat", "map", "stress")
+MemoryLimit = Annotated[quantity("B", gt=0) | None, Field(
+    description="bytes the stage may use, e.g. \"8 GiB\" (default: what the machine has available); "
+                "not part of the store key")]
+SolverMethod = Literal[solvers.METHODS]  # type: ignore[valid-type]
 
 
 def _emissivity(value):
@@ -88,89 +92,6 @@ class PartSection(Strict):
     temperature_limit: Temperature | None = Field(default=None, description="highest allowed temperature [K]")
 
 
-class ConvectionSection(Strict):
-    film_coefficient: FilmCoefficient
-    ambient: Temperature
-    exponent: Annotated[float, Field(ge=0)] = Field(default=0.0, description="h = film_coefficient * "
-                                                    "(|T - ambient| / reference_difference)^exponent")
-    reference_difference: quantity("K", gt=0) = Field(default=1.0, description="temperature difference [K] "
-                                                      "at which h equals film_coefficient")
-
-
-class RadiationSection(Strict):
-    emissivity: Emissivity = Field(description="0..1 or a finish name")
-    surroundings: Temperature
-
-
-class FluxSection(Strict):
-    per_area: HeatFluxDensity | None = Field(default=None, description="into the body")
-    total: Power | None = Field(default=None, description="into the body, spread over the surface")
-
-
-class HeatStage(Strict):
-    kind: Literal["heat"]
-    order: Literal[1, 2] = 1
-    solver: Literal["auto", "direct", "amg"] = "auto"
-    memory_limit: quantity("B", gt=0) | None = Field(default=None, description="bytes the stage may use, e.g. "
-                                                     "\"8 GiB\" (default: what the machine has available); not part of the store key")
-    materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
-    power: dict[str, Power] = Field(default_factory=dict, description="part -> W")
-    generation: dict[str, Generation] = Field(default_factory=dict, description="part -> W/m^3")
-    flux: dict[str, FluxSection] = Field(default_factory=dict)
-    convection: dict[str, ConvectionSection] = Field(default_factory=dict)
-    radiation: dict[str, RadiationSection] = Field(default_factory=dict)
-    fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="surface -> K")
-    max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most")
-    adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
-                                 "planes, insulation): not warned about")
-
-
-class MapStage(Strict):
-    kind: Literal["map"]
-    source: str | None = Field(default=None, description="the heat stage whose temperatures are mapped")
-    file: str | None = Field(default=None, description="or an external field: VTU point data or CSV x, y, z, T")
-    array: str | None = Field(default=None, description="point-data array of the VTU file")
-    file_unit: LengthUnit = Field(default="m", description="length unit of the file's coordinates")
-    temperature_unit: Literal["K", "degC"] = "K"
-    mesh: MeshSection | None = Field(default=None, description="structural mesh, if not the workflow's mesh")
-    reference: Temperature = Field(default=293.15, description="stress-free temperature [K]")
-    reference_by_part: dict[str, Temperature] = Field(default_factory=dict)
-    tolerance: PositiveLength | None = Field(default=None, description="distance outside the source that is "
-                                             "accepted [m]; default half the source's median edge")
-    order: Literal[1, 2] = Field(default=1, description="order of a cross-mesh or external field")
-
-    @model_validator(mode="after")
-    def _one_source(self):
-        if (self.source is None) == (self.file is None):
-            raise ValueError("give exactly one of 'source' (a heat stage) or 'file' (a field file)")
-        return self
-
-
-class SupportSection(Strict):
-    kind: Literal["fixed", "symmetry", "displacement", "spring", "minimal"]
-    x: Length | None = None
-    y: Length | None = None
-    z: Length | None = None
-    stiffness: SpringStiffness | None = Field(default=None, description="spring stiffness per area [N/m^3]")
-
-
-class StressStage(Strict):
-    kind: Literal["stress"]
-    source: str | None = Field(default=None, description="the map stage that gives the temperatures")
-    order: Literal[1, 2] = 2
-    solver: Literal["auto", "direct", "amg"] = "auto"
-    memory_limit: quantity("B", gt=0) | None = Field(default=None, description="bytes the stage may use, e.g. "
-                                                     "\"8 GiB\" (default: what the machine has available); not part of the store key")
-    materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
-    supports: dict[str, SupportSection] = Field(description="surface (or any name for 'minimal') -> support")
-    pressure: dict[str, Pressure] = Field(default_factory=dict, description="surface -> Pa")
-    force: dict[str, Annotated[list[Force], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
-    gravity: Annotated[list[Acceleration], Field(min_length=3, max_length=3)] | None = None
-
-
-Stage = Annotated[Union[HeatStage, MapStage, StressStage], Field(discriminator="kind")]
-
-
 class OutputSection(Strict):
     folder: str = Field(default="results", description="results folder, relative to the workflow file")
     vtu: bool = True
@@ -180,18 +101,56 @@ class OutputSection(Strict):
         default=1.5, description="pass/fail threshold in the report (1.5 against yield is common practice)")
 
 
-class Workflow(Strict):
+class WorkflowBase(Strict):
+    """The workflow file's tables except ``stages``, whose members come from the stage kinds."""
+
     title: str = ""
     mesh: MeshSection
     materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, as in the library")
     parts: dict[str, PartSection]
-    stages: dict[str, Stage]
     probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
     output: OutputSection = OutputSection()
     # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
     # is in no store key
     sweep: dict | None = Field(default=None, description="a parameter study: grid and paired value lists "
                                "by key path (docs/studies.md)")
+
+
+_MODEL: type[WorkflowBase] | None = None
+
+
+def model() -> type[WorkflowBase]:
+    """The schema of a workflow file: ``stages`` is a union of the registered kinds' sections,
+    told apart by their ``kind`` key (built once, again after a kind is registered)."""
+    global _MODEL
+    if _MODEL is None:
+        from .. import kinds
+
+        members = tuple(k.Schema for k in kinds.all_kinds().values())
+        stage = Annotated[Union[members], Field(discriminator="kind")]  # type: ignore[valid-type]
+        _MODEL = create_model("Workflow", __base__=WorkflowBase,
+                              stages=(dict[str, stage], Field(description="stage name -> stage")))
+    return _MODEL
+
+
+def forget_model() -> None:
+    """Rebuild the schema on next use (the registered kinds changed)."""
+    global _MODEL
+    _MODEL = None
+
+
+def kind_names() -> tuple[str, ...]:
+    """The stage kinds a workflow may name."""
+    from .. import kinds
+
+    return kinds.names()
+
+
+def stage_schema(kind: object) -> type[BaseModel] | None:
+    """The section model of a stage kind, or None for a word that is no kind."""
+    from .. import kinds
+
+    return kinds.all_kinds()[kind].Schema if isinstance(kind, str) and kind in kinds.names() else None
 
 
 def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
@@ -271,12 +230,12 @@ def apply_sets(raw: dict, sets: list[str], where: str) -> dict:
     return raw
 
 
-def load(path: str | Path, sets: list[str] | None = None) -> Workflow:
+def load(path: str | Path, sets: list[str] | None = None) -> WorkflowBase:
     """Parse, merge, override and validate a workflow file."""
     path = Path(path)
     raw = apply_sets(read_raw(path), sets or [], str(path))
     try:
-        workflow = Workflow.model_validate(raw)
+        workflow = model().model_validate(raw)
     except ValidationError as exc:
         raise errors.InputError(_messages(path, exc.errors(), raw)) from None
     problems = _cycles(path, workflow)
@@ -285,7 +244,40 @@ def load(path: str | Path, sets: list[str] | None = None) -> Workflow:
     return workflow
 
 
-def _cycles(path: Path, workflow: Workflow) -> list[str]:
+def load_sections(path: str | Path, sets: list[str] | None = None) -> tuple[WorkflowBase | None, list, list[str]]:
+    """Like ``load``, but a schema error does not stop the checks of the rest: returns the workflow
+    made of every table that is valid, the schema problems and the names of the stages left out
+    (None as the workflow when the mesh, parts or output tables themselves are invalid)."""
+    path = Path(path)
+    raw = apply_sets(read_raw(path), sets or [], str(path))
+    try:
+        workflow = model().model_validate(raw)
+    except ValidationError as exc:
+        problems: list = _messages(path, exc.errors(), raw)
+    else:
+        cycles = _cycles(path, workflow)
+        return (None if cycles else workflow), cycles, []
+    try:
+        rest = WorkflowBase.model_validate({k: v for k, v in raw.items() if k != "stages"})
+    except ValidationError:
+        return None, problems, []
+    stages, left_out = {}, []
+    tables = raw.get("stages") if isinstance(raw.get("stages"), dict) else {}
+    for name, table in tables.items():
+        schema = stage_schema(table.get("kind")) if isinstance(table, dict) else None
+        try:
+            stages[name] = schema.model_validate(table) if schema else None
+        except ValidationError:
+            stages[name] = None
+        if stages[name] is None:
+            left_out.append(name)
+            del stages[name]
+    workflow = model().model_construct(**dict(rest), stages=stages)
+    cycles = _cycles(path, workflow)
+    return (None if cycles else workflow), problems + cycles, left_out
+
+
+def _cycles(path: Path, workflow: WorkflowBase) -> list[str]:
     """Stages whose sources lead back to themselves (a chain runs heat -> map -> stress)."""
     reads = {n: s.source for n, s in workflow.stages.items() if getattr(s, "source", None) in workflow.stages}
     problems, reported = [], set()
@@ -307,7 +299,7 @@ def _cycles(path: Path, workflow: Workflow) -> list[str]:
 
 def schema() -> dict:
     """The JSON Schema of a workflow file (for editors)."""
-    return Workflow.model_json_schema()
+    return model().model_json_schema()
 
 
 def _messages(path: Path, found: list[dict], raw: dict) -> list[str]:
@@ -331,8 +323,8 @@ def _messages(path: Path, found: list[dict], raw: dict) -> list[str]:
 
 def _message(path: Path, loc: tuple, error: dict, raw: dict, misspelt: set) -> str:
     text = ".".join(str(p) for p in loc)
-    kind = error["type"]
-    if kind == "extra_forbidden":
+    error_type = error["type"]
+    if error_type == "extra_forbidden":
         fields = _fields_at(loc[:-1], raw)
         match = errors.closest_name(str(loc[-1]), fields) if fields else None
         hint = ""
@@ -340,16 +332,16 @@ def _message(path: Path, loc: tuple, error: dict, raw: dict, misspelt: set) -> s
             hint = f" (did you mean '{match}'?{' it is required and missing' if loc[:-1] + (match,) in misspelt else ''})"
         valid = f"; valid keys: {', '.join(fields)}" if fields else ""
         return f"{path}: unknown key '{text}'{hint}{valid}"
-    if kind == "missing":
+    if error_type == "missing":
         return f"{path}: missing required key '{text}'{_about(loc, raw)}"
-    if kind == "union_tag_not_found":
-        return f"{path}: missing required key '{text}.kind' (the stage kind: {', '.join(KINDS)})"
-    if kind == "union_tag_invalid":
+    if error_type == "union_tag_not_found":
+        return f"{path}: missing required key '{text}.kind' (the stage kind: {', '.join(kind_names())})"
+    if error_type == "union_tag_invalid":
         tag = str(error.get("ctx", {}).get("tag"))
-        return (f"{path}: {text}.kind: '{tag}' is not a stage kind{errors.closest(tag, KINDS)}; "
-                f"valid kinds: {', '.join(KINDS)}")
+        return (f"{path}: {text}.kind: '{tag}' is not a stage kind{errors.closest(tag, kind_names())}; "
+                f"valid kinds: {', '.join(kind_names())}")
     message = error["msg"].removeprefix("Value error, ")
-    if kind == "literal_error" and isinstance(error.get("input"), str):
+    if error_type == "literal_error" and isinstance(error.get("input"), str):
         message += errors.closest(error["input"], re.findall(r"'([^']*)'", error.get("ctx", {}).get("expected", "")))
     if "got " not in message:
         message += f" (got {error.get('input')!r})"
@@ -358,8 +350,8 @@ def _message(path: Path, loc: tuple, error: dict, raw: dict, misspelt: set) -> s
 
 def _about(loc: tuple, raw: dict) -> str:
     """What a missing key holds: its description and, for a fixed set of words, the choices."""
-    model = _model_at(loc[:-1], raw)
-    field = model.model_fields.get(str(loc[-1])) if model else None
+    table = _model_at(loc[:-1], raw)
+    field = table.model_fields.get(str(loc[-1])) if table else None
     if field is None:
         return ""
     words = []
@@ -375,7 +367,7 @@ def _clean(loc: tuple, raw: dict) -> tuple:
     """The key path as the user wrote it: without the discriminator tags pydantic puts into a stage's path
     (stages.NAME.heat.key) and without the tags of union members below a plain value."""
     out = list(loc)
-    if len(out) > 2 and out[0] == "stages" and out[2] in KINDS:
+    if len(out) > 2 and out[0] == "stages" and out[2] in kind_names():
         del out[2]
     kept, node = [], raw
     for part in out:
@@ -391,34 +383,34 @@ def _clean(loc: tuple, raw: dict) -> tuple:
 
 def _fields_at(loc: tuple, raw: dict) -> list[str]:
     """Valid keys of the schema table at a key path (empty inside free-form tables)."""
-    model = _model_at(loc, raw)
-    return list(model.model_fields) if model else []
+    table = _model_at(loc, raw)
+    return list(table.model_fields) if table else []
 
 
 def _model_at(loc: tuple, raw: dict) -> type[BaseModel] | None:
     """The schema model of the table at a key path, or None inside free-form tables."""
-    model: type[BaseModel] | None = Workflow
+    schema: type[BaseModel] | None = model()
     keys = list(loc)
     if keys[:1] == ["stages"] and len(keys) >= 2:  # a stage's schema follows from its kind
         stages = raw.get("stages") if isinstance(raw, dict) else None
         stage = stages.get(keys[1]) if isinstance(stages, dict) else None
         kind = stage.get("kind") if isinstance(stage, dict) else None
-        model = {"heat": HeatStage, "map": MapStage, "stress": StressStage}.get(kind) if isinstance(kind, str) else None
+        schema = stage_schema(kind)
         keys = keys[2:]
-        if model is None:
+        if schema is None:
             return None
     while keys:
-        field = model.model_fields.get(str(keys.pop(0)))
+        field = schema.model_fields.get(str(keys.pop(0)))
         if field is None:
             return None
         ann = field.annotation
         sub = getattr(ann, "__args__", None)
         if isinstance(ann, type) and issubclass(ann, BaseModel):
-            model = ann
+            schema = ann
         elif sub and isinstance(sub[-1], type) and issubclass(sub[-1], BaseModel):
-            model = sub[-1]
+            schema = sub[-1]
             if keys:
                 keys.pop(0)  # the table's own key (a part or surface name)
         else:
             return None
-    return model
+    return schema

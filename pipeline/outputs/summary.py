@@ -9,10 +9,6 @@ import os
 import tempfile
 from pathlib import Path
 
-import numpy as np
-
-from ..model.units import celsius
-
 CAUTION = (
     "Temperatures and stresses from thermochain are numerical estimates whose accuracy depends on the inputs "
     "(powers, film coefficients, material data), on the mesh and on the simplifying assumptions (steady state, "
@@ -20,30 +16,6 @@ CAUTION = (
     "qualified engineer, a licensed professional engineer where required, before any design release or safety "
     "decision; applicable codes, standards and component datasheets take precedence."
 )
-
-
-def figures(kind: str, result) -> dict:
-    """The figures of a stage result that a summary shows, with the unit in each key's name."""
-    return {"heat": heat_figures, "map": map_figures, "stress": stress_figures}[kind](result)
-
-
-def map_figures(load) -> dict:
-    return {"order": load.order, "diagnostics": dict(load.diagnostics),
-            "reference_degC": {"min": round(celsius(float(load.reference.min())), 4),
-                               "max": round(celsius(float(load.reference.max())), 4)}}
-
-
-def stress_figures(field) -> dict:
-    return {
-        "order": field.order,
-        "parts": {p: dict(f) for p, f in field.parts.items()},
-        "reactions_N": {k: list(v) for k, v in field.reactions.items()},
-        "equilibrium": dict(field.equilibrium),
-        "probes": dict(field.probes),
-        "displacement_max_m": float(np.linalg.norm(field.displacement, axis=1).max()),
-        "solver": field.solver.to_dict() | {"history": []},
-        "notices": list(field.notices),
-    }
 
 
 def write_csv(path: Path, record: dict) -> None:
@@ -63,22 +35,6 @@ def write_csv(path: Path, record: dict) -> None:
     text = io.StringIO()
     csv.writer(text).writerows(rows)
     write_text(path, text.getvalue())
-
-
-def heat_figures(field) -> dict:
-    """The figures of a TemperatureField that a summary shows, in degC and W."""
-    return {
-        "order": field.order,
-        "parts_degC": {p: {k: round(celsius(v), 4) for k, v in s.items()} for p, s in field.parts.items()},
-        "probes_degC": {p: round(celsius(v), 4) for p, v in field.probes.items()},
-        "heat_balance_W": [dict(r) for r in field.balance],
-        "heat_in_W": field.heat_in,
-        "relative_imbalance": field.imbalance,
-        "loads": [dict(r) for r in field.loads],
-        "adiabatic_surfaces": list(field.adiabatic),
-        "solver": field.solver.to_dict() | {"history": []},
-        "notices": list(field.notices),
-    }
 
 
 def write_json(path: Path, data: dict) -> None:

@@ -1,4 +1,9 @@
-"""VTU files (zlib-compressed XML) that open in ParaView: fields on the volume cells and vertices."""
+"""VTU files (zlib-compressed XML) that open in ParaView, and the one mesh builder behind them.
+
+``mesh(domain, result)`` is the meshio mesh of a result (the kind's arrays on the volume cells and
+vertices, with ``part_id`` per cell); ``grid`` is the same as a pyvista grid (the figures and
+notebooks use it); ``write`` writes the VTU file.
+"""
 
 from __future__ import annotations
 
@@ -7,49 +12,63 @@ from pathlib import Path
 import meshio
 import numpy as np
 
-from ..model.units import celsius
+
+def arrays(domain, result, kind: str | None = None) -> tuple[dict, dict] | None:
+    """(point data, cell data) of a result, by its stage kind's ``outputs`` hook; None for a kind
+    that writes no VTU file."""
+    from .. import kinds
+
+    kind = kind or kind_of(result)
+    got = kinds.hook(kind, "outputs")(domain, result)
+    if got is None:
+        return None
+    points, cells = got
+    return dict(points), {"part_id": domain.part_ids()} | dict(cells)
 
 
-def write(path: Path, domain, result) -> Path:
-    """A VTU of a heat or stress result."""
-    from ..fields import StressField
+def kind_of(result) -> str:
+    """The stage kind whose result type ``result`` is."""
+    from .. import kinds
 
-    return (write_stress if isinstance(result, StressField) else write_temperature)(path, domain, result)
-
-
-def write_stress(path: Path, domain, field) -> Path:
-    """Displacement at the vertices [m] (3-vector, for warping), per cell: stress [Pa] as 6 components
-    in the order xx, yy, zz, yz, xz, xy, von Mises, Tresca and principal stresses [Pa], the element
-    safety factor [-] (capped at 1e6) and ``part_id``."""
-    nv = len(domain.points)
-    cells = {"part_id": domain.part_ids(), "stress_xx_yy_zz_yz_xz_xy_Pa": field.stress,
-             "von_mises_Pa": field.von_mises, "tresca_Pa": field.tresca, "principal_Pa": field.principal,
-             "safety_factor": np.minimum(field.safety, 1e6)}  # capped: unloaded cells would be infinite
-    return _write(path, domain, {"displacement_m": field.displacement[:nv]}, cells)
+    for name, module in kinds.all_kinds().items():
+        if isinstance(result, module.RESULT):
+            return name
+    raise TypeError(f"no stage kind gives a {type(result).__name__}")
 
 
-def _write(path: Path, domain, points: dict, cells: dict) -> Path:
+def mesh(domain, result=None, kind: str | None = None) -> meshio.Mesh:
+    """A meshio mesh of the domain [m] carrying the result's arrays (only ``part_id`` without one)."""
+    got = arrays(domain, result, kind) if result is not None else None
+    points, cells = got if got is not None else ({}, {})
+    cells = {"part_id": domain.part_ids()} | cells
+    return meshio.Mesh(domain.points, [("tetra", domain.tetrahedra)], point_data=points,
+                       cell_data={k: [np.asarray(v)] for k, v in cells.items()})
+
+
+def grid(domain, result=None, kind: str | None = None, scale: float = 1.0):
+    """A pyvista UnstructuredGrid of the same mesh, coordinates times ``scale`` (1e3: in mm)."""
+    import pyvista as pv
+
+    m = mesh(domain, result, kind)
+    cells = np.hstack([np.full((len(domain.tetrahedra), 1), 4), domain.tetrahedra]).ravel()
+    out = pv.UnstructuredGrid(cells, np.full(len(domain.tetrahedra), pv.CellType.TETRA, dtype=np.uint8),
+                              domain.points * scale)
+    for k, v in m.point_data.items():
+        out.point_data[k] = v
+    for k, v in m.cell_data.items():
+        out.cell_data[k] = v[0]
+    return out
+
+
+def write(path: Path, domain, result, kind: str | None = None) -> Path:
+    """The VTU file of a result (written beside, then moved into place)."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    mesh = meshio.Mesh(domain.points, [("tetra", domain.tetrahedra)], point_data=points,
-                       cell_data={k: [v] for k, v in cells.items()})
     tmp = path.with_name(f".{path.name}.tmp")
-    meshio.write(tmp, mesh, file_format="vtu", compression="zlib")
+    meshio.write(tmp, mesh(domain, result, kind), file_format="vtu", compression="zlib")
     tmp.replace(path)
     return path
-
-
-def write_temperature(path: Path, domain, field) -> Path:
-    """Temperature at the vertices [K and degC] and ``part_id`` per cell (index in sorted part names).
-
-    P2 fields are written at the vertices only (the linear cells the mesh was read with).
-    """
-    t = field.at_vertices
-    return _write(path, domain, {"temperature_K": t, "temperature_degC": celsius(t)}, {"part_id": domain.part_ids()})
 
 
 def part_legend(domain) -> dict[str, int]:
     """part name -> the ``part_id`` written in VTU files."""
     return {name: i for i, name in enumerate(sorted(domain.parts))}
-
-
-

@@ -30,6 +30,7 @@ import numpy as np
 from .. import __version__, errors
 from ..flow import runner
 from ..flow import workflow as wf
+from ..kinds.stress import SINGULAR_PEAK
 from ..model import mesh as mesh_mod
 from ..model.units import length_factor
 from ..outputs.summary import CAUTION, write_json, write_text
@@ -190,7 +191,8 @@ def run(path: str | Path, levels: int = 3, meshes: list[str] | None = None, name
         rec = runner.run(path, list(sets or []) + [f"mesh.file={toml_value(str(file))}"] + quiet, store,
                          str(folder / f"level_{i + 1}"), progress=say)
         record["levels"].append({"mesh": str(file), "tetrahedra": count, "volume_m3": volume, "h_m": h,
-                                 "seconds": time.perf_counter() - t0, "warnings": rec.get("warnings", [])})
+                                 "seconds": time.perf_counter() - t0, "warnings": rec.get("warnings", []),
+                                 "warning_records": rec.get("warning_records", [])})
         figures.append(quantities.flatten(rec))
         if i == 0:  # a misspelt name is reported before the finer meshes are run
             names = names or default_quantities(figures[0])
@@ -208,13 +210,13 @@ def _quantity(name: str, h: list[float], values: list, record: dict) -> dict:
     q |= gci(h, values, SAFETY_FACTOR)
     stage, _, rest = name.partition(".")
     part = rest.split(".")[0]
-    if name.endswith(".von_mises_max_MPa"):
-        marker = f"{stage}: the peak von Mises of {part} lies on a support or on the edge of a bonded interface"
-        if any(marker in w for w in record["levels"][-1]["warnings"]):
-            q |= {"verdict": "singular", "gci_fine": None,
-                  "note": "the peak lies on a support or on the edge of a bonded interface, where the elastic "
-                          "stress is singular and grows with refinement; not a converged value"
-                          + (f" (observed order {q['order']:.2f} would suggest otherwise)" if q.get("order") else "")}
+    if name.endswith(".von_mises_max_MPa") and any(
+            w["code"] == SINGULAR_PEAK and w["where"] == stage and w["data"].get("part") == part
+            for w in record["levels"][-1]["warning_records"]):
+        q |= {"verdict": "singular", "gci_fine": None,
+              "note": "the peak lies on a support or on the edge of a bonded interface, where the elastic "
+                      "stress is singular and grows with refinement; not a converged value"
+                      + (f" (observed order {q['order']:.2f} would suggest otherwise)" if q.get("order") else "")}
     return q
 
 

@@ -71,7 +71,7 @@ def _up_to_date(task: dict) -> dict | None:
     plan = runner.plan(task["workflow"], task["sets"], task["store"], task["folder"])
     for s in plan.stages:
         if previous["stages"].get(s.name, {}).get("key") != s.key or \
-                not (plan.store._place(s.kind, s.key) / "manifest.json").is_file():
+                not plan.store.holds(s.kind, s.key):
             return None
     for st in previous["stages"].values():
         st["status"] = "reused"

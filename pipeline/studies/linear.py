@@ -47,17 +47,17 @@ def prepare(tasks: list[dict]) -> dict:
         except errors.ThermochainError:
             continue  # the variant's own run records the problem
         if len(plans) == 1:
-            heats = [s for s in plans[0].stages if s.kind == "heat"]
+            heats = [s for s in plans[0].stages if isinstance(s.spec, heat.HeatSpec)]
             out = {s.name: _refusal(s.name, nonlinear_terms(s.spec)) for s in heats if nonlinear_terms(s.spec)}
             if len(out) == len(heats):
                 return out
     out = {}
-    names = [s.name for s in plans[0].stages if s.kind == "heat"] if plans else []
+    names = [s.name for s in plans[0].stages if isinstance(s.spec, heat.HeatSpec)] if plans else []
     for name in names:
         stages = {}
         for p in plans:
             s = next(s for s in p.stages if s.name == name)
-            if not (p.store._place("heat", s.key) / "manifest.json").is_file():
+            if not p.store.holds(s.kind, s.key):
                 stages.setdefault(s.key, (s, p.store))
         out[name] = _superpose(name, list(stages.values()))
     return out
@@ -99,13 +99,13 @@ def _superpose(name: str, missing: list) -> dict:
              for p in swept}
     solve_seconds = time.perf_counter() - start
     for s, store in missing:
-        with store.lock("heat", s.key):
-            if (store._place("heat", s.key) / "manifest.json").is_file():
+        with store.lock(s.kind, s.key):
+            if store.holds(s.kind, s.key):
                 continue  # another run computed it meanwhile
             t0 = time.perf_counter()
             field = combine(domain, s.spec, base, units)
             arrays, meta = field.to_arrays()
-            store.put("heat", s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
+            store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
                                                     "seconds": time.perf_counter() - t0, "method": field.solver.method})
     return {"superposed": True, "solves": 1 + len(swept), "variants": len(missing), "parts": swept,
             "seconds": solve_seconds,

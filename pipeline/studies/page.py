@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..outputs.report import STYLE, _e, _table
+from ..outputs.report import STYLE, escape, table
 from ..outputs.summary import CAUTION, write_text
 
 
@@ -167,36 +167,36 @@ def tornado(folder: Path, record: dict, names: list[str], file: str = "tornado.p
 
 def _img(folder: Path, file: str, caption: str) -> str:
     data = base64.b64encode((folder / file).read_bytes()).decode()
-    return (f'<figure><img alt="{_e(file)}" src="data:image/png;base64,{data}">'
-            f"<figcaption>{_e(caption)}</figcaption></figure>")
+    return (f'<figure><img alt="{escape(file)}" src="data:image/png;base64,{data}">'
+            f"<figcaption>{escape(caption)}</figcaption></figure>")
 
 
 def _page(title: str, body: list[str]) -> str:
-    caution = f'<div class="caution"><b>Caution.</b> {_e(CAUTION)}</div>'
-    return "\n".join([f"<!doctype html><html><head><meta charset='utf-8'><title>{_e(title)}</title>"
-                      f"<style>{STYLE}</style></head><body><h1>{_e(title)}</h1>", caution] + body
+    caution = f'<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div>'
+    return "\n".join([f"<!doctype html><html><head><meta charset='utf-8'><title>{escape(title)}</title>"
+                      f"<style>{STYLE}</style></head><body><h1>{escape(title)}</h1>", caution] + body
                      + [caution, "</body></html>"])
 
 
 def sweep_html(path: Path, record: dict, names: list[str]) -> None:
     """sweep.html: the sweep section (axes, linearity, executor, counts), the table, failures, plots."""
     keys = [k for a in record["axes"] for k in a["keys"]]
-    body = [f"<p>Workflow <code>{_e(record['workflow'])}</code>, sweep definition <code>{_e(record['definition'])}"
-            f"</code>, thermochain {_e(record['thermochain'])}; {record['variants']} variants on "
-            f"{_e(record.get('executor', ''))}, {record.get('seconds', 0):.1f} s.</p>", "<h2>Sweep</h2>",
-            _table(["axis", "key paths", "values"], [[i + 1, ", ".join(a["keys"]), "; ".join(
+    body = [f"<p>Workflow <code>{escape(record['workflow'])}</code>, sweep definition <code>{escape(record['definition'])}"
+            f"</code>, thermochain {escape(record['thermochain'])}; {record['variants']} variants on "
+            f"{escape(record.get('executor', ''))}, {record.get('seconds', 0):.1f} s.</p>", "<h2>Sweep</h2>",
+            table(["axis", "key paths", "values"], [[i + 1, ", ".join(a["keys"]), "; ".join(
                 ", ".join(_cell(x) for x in v) for v in a["values"])] for i, a in enumerate(record["axes"])]),
             "<p>Axes are combined as a full grid; key paths listed together on one axis change together.</p>",
-            "<h2>Linearity</h2>" + "".join(f"<p>{_e(r['reason'])}</p>" for r in record.get("linearity", {}).values()),
-            "<h2>Stage results</h2>" + _table(["stage", "computed", "superposed", "reused"], [
+            "<h2>Linearity</h2>" + "".join(f"<p>{escape(r['reason'])}</p>" for r in record.get("linearity", {}).values()),
+            "<h2>Stage results</h2>" + table(["stage", "computed", "superposed", "reused"], [
                 [s, c.get("computed", 0), c.get("superposed", 0), c.get("reused", 0)]
                 for s, c in record.get("counts", {}).get("stages", {}).items()]),
-            "<h2>Variants</h2>" + _table(["id", "status"] + keys + names, [
+            "<h2>Variants</h2>" + table(["id", "status"] + keys + names, [
                 [r["id"], r["status"]] + [_cell(r["values"].get(k)) for k in keys]
                 + [_cell(r.get("figures", {}).get(n)) for n in names] for r in record["rows"]])]
     failed = [r for r in record["rows"] if r["status"] == "failed"]
     if failed:
-        body.append("<h2>Failed variants</h2>" + _table(["id", "values", "error"], [
+        body.append("<h2>Failed variants</h2>" + table(["id", "values", "error"], [
             [r["id"], ", ".join(f"{k} = {_cell(v)}" for k, v in r["values"].items()), r.get("error", "")]
             for r in failed]))
     seen: dict[str, int] = {}
@@ -204,9 +204,9 @@ def sweep_html(path: Path, record: dict, names: list[str]) -> None:
         for w in r.get("warnings", []):
             seen[w] = seen.get(w, 0) + 1
     if seen:
-        body.append("<h2>Warnings of the variants</h2>" + _table(["warning", "variants"], [[w, n] for w, n in seen.items()]))
+        body.append("<h2>Warnings of the variants</h2>" + table(["warning", "variants"], [[w, n] for w, n in seen.items()]))
     for note in record.get("notices", []):
-        body.append(f'<p class="warn">{_e(note)}</p>')
+        body.append(f'<p class="warn">{escape(note)}</p>')
     for p in record.get("plots", []):
         body.append(_img(path.parent, p["file"], f"{p['figure']} against {p['against']}"))
     write_text(path, _page(f"Sweep of {Path(record['workflow']).name}", body))
@@ -215,17 +215,17 @@ def sweep_html(path: Path, record: dict, names: list[str]) -> None:
 def convergence_html(path: Path, record: dict) -> None:
     """convergence.html: the levels, and per quantity its values, observed order, Richardson estimate, GCI."""
     levels = record["levels"]
-    body = [f"<p>Workflow <code>{_e(record['workflow'])}</code>, thermochain {_e(record['thermochain'])}, "
-            f"{_e(record['method'])}.</p>", "<h2>Meshes</h2>",
-            _table(["level", "mesh", "tetrahedra", "h = (V/N)^(1/3) [mm]", "seconds"], [
+    body = [f"<p>Workflow <code>{escape(record['workflow'])}</code>, thermochain {escape(record['thermochain'])}, "
+            f"{escape(record['method'])}.</p>", "<h2>Meshes</h2>",
+            table(["level", "mesh", "tetrahedra", "h = (V/N)^(1/3) [mm]", "seconds"], [
                 [i + 1, Path(lv["mesh"]).name, lv["tetrahedra"], f"{lv['h_m'] * 1e3:.4g}", f"{lv['seconds']:.1f}"]
                 for i, lv in enumerate(levels)]),
-            f"<p>{_e(record['basis'])}</p>", "<h2>Quantities</h2>",
-            _table(["quantity"] + [f"level {i + 1}" for i in range(len(levels))]
+            f"<p>{escape(record['basis'])}</p>", "<h2>Quantities</h2>",
+            table(["quantity"] + [f"level {i + 1}" for i in range(len(levels))]
                    + ["observed order p", "Richardson estimate", "GCI fine [%]", "asymptotic ratio", "verdict"], [
                 [q["name"]] + [_cell(v) for v in q["values"]]
                 + [_cell(q.get("order")), _cell(q.get("extrapolated")),
                    "" if q.get("gci_fine") is None else f"{100 * q['gci_fine']:.3g}",
                    _cell(q.get("asymptotic_ratio")), q["verdict"]] for q in record["quantities"]])]
-    body += [f"<p>{_e(q['name'])}: {_e(q['note'])}</p>" for q in record["quantities"] if q.get("note")]
+    body += [f"<p>{escape(q['name'])}: {escape(q['note'])}</p>" for q in record["quantities"] if q.get("note")]
     write_text(path, _page(f"Mesh convergence of {Path(record['workflow']).name}", body))

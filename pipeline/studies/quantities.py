@@ -9,35 +9,18 @@ stress: ``stress.shell.von_mises_max_MPa`` (also principal_max, principal_min), 
 
 from __future__ import annotations
 
-import math
-
 from .. import errors
 
 
 def flatten(record: dict) -> dict[str, float | None]:
-    """Every figure of a summary record by name (None where a figure does not exist, e.g. no safety factor)."""
+    """Every figure of a summary record by name (None where a figure does not exist, e.g. no safety factor),
+    from each stage kind's ``quantities`` hook."""
+    from .. import kinds
+
     out: dict[str, float | None] = {}
     for name, st in record.get("stages", {}).items():
-        if st.get("kind") == "heat" and "parts_degC" in st:
-            for part, s in st["parts_degC"].items():
-                out |= {f"{name}.{part}.{k}_degC": s[k] for k in ("max", "mean", "min")}
-            out |= {f"{name}.probes.{p}_degC": t for p, t in st.get("probes_degC", {}).items()}
-            out[f"{name}.heat_in_W"] = st.get("heat_in_W")
-        elif st.get("kind") == "stress" and "parts" in st:
-            factors = []
-            for part, f in st["parts"].items():
-                for k in ("von_mises_max", "principal_max", "principal_min"):
-                    out[f"{name}.{part}.{k}_MPa"] = f[f"{k}_Pa"] / 1e6
-                out[f"{name}.{part}.safety_factor"] = f["safety_factor"]
-                if f["safety_factor"] is not None:
-                    factors.append(f["safety_factor"])
-            out[f"{name}.safety_factor_min"] = min(factors) if factors else None
-            out[f"{name}.displacement_max_mm"] = st["displacement_max_m"] * 1e3
-            for p, v in st.get("probes", {}).items():
-                out[f"{name}.probes.{p}.von_mises_MPa"] = v["von_mises_Pa"] / 1e6
-                out[f"{name}.probes.{p}.displacement_mm"] = math.hypot(*v["displacement_m"]) * 1e3
-            for support, r in st.get("reactions_N", {}).items():
-                out |= {f"{name}.reactions.{support}.{a}_N": v for a, v in zip("xyz", r)}
+        if st.get("kind") in kinds.names() and st.get("status") != "failed":
+            out |= kinds.hook(st["kind"], "quantities")(name, st)
     return out
 
 

@@ -96,10 +96,17 @@ class Case:
 @dataclass
 class WorkflowRun:
     """What the checks of a workflow case read: the validated workflow (SI values), the run's summary
-    and, at full precision, the stored result and domain of each stage."""
+    and, at full precision, the result and domain of each stage (``pipeline.results.Run``)."""
 
-    plan: object
-    record: dict
+    run: object
+
+    @property
+    def plan(self):
+        return self.run.plan
+
+    @property
+    def record(self) -> dict:
+        return self.run.summary
 
     @property
     def workflow(self):
@@ -109,16 +116,10 @@ class WorkflowRun:
         return next(s for s in self.plan.stages if s.name == name)
 
     def result(self, name: str):
-        from ..flow.runner import RESULT
-
-        s = self.stage(name)
-        got = self.plan.store.get(s.kind, s.key)
-        if not isinstance(got, tuple):
-            raise errors.StoreError(f"stored result of stage {name} unreadable: {got}")
-        return RESULT[s.kind].from_arrays(*got)
+        return self.run.result(name)
 
     def domain(self, name: str):
-        return self.stage(name).domain
+        return self.run.domain(name)
 
     def material(self, name: str):
         from ..model.materials import from_record
@@ -286,8 +287,7 @@ def run_case(case: Case, parameter, work: Path) -> list[Check]:
     if case.prepare:
         case.prepare(work, parameter)
     store, out = work / "store", work / "results"
-    record = runner.run(path, store=str(store), out=str(out))
-    return case.checks(WorkflowRun(runner.plan(path, store=str(store), out=str(out)), record), parameter)
+    return case.checks(WorkflowRun(runner.execute(path, store=str(store), out=str(out))), parameter)
 
 
 def _copy_workflow(source: Path, work: Path) -> Path:
