@@ -81,6 +81,13 @@ def thin_axis(domain, part: str) -> tuple[int, float, float]:
     return axis, float(lo[axis]), float(hi[axis])
 
 
+def plate_like(domain, part: str, ratio: float = 0.25) -> bool:
+    """Whether a part is a plate: thinner along one axis than ``ratio`` of its smaller other extent."""
+    xyz = domain.points[np.unique(domain.tetrahedra[domain.parts[part]])]
+    extent = np.sort(np.ptp(xyz, axis=0))
+    return bool(extent[0] < ratio * extent[1])
+
+
 # -------------------------------------------------------------------------------------------- rendering
 #: VTK's off-screen rendering is not thread-safe: two runs in one process (threads, a sweep's
 #: threaded workers) render one at a time, or both can hang inside the render call (seen in CI).
@@ -291,10 +298,6 @@ def temperature_section(path: Path, domain, field, part: str | None = None) -> d
             f"plane {what} = {level * 1e3:.2f} mm (middle of the {part}); {clim[0]:.1f} to {clim[1]:.1f} degC "
             "on the section", "temperature", clim, "temperature [degC]", labels=list(zip(px, present)))
     return _record(path, clim, "degC", part=part, axis=what, level_m=level, parts=present, part_pixels=part_pixels)
-
-
-#: The name the results folder's figure lists use for the section (kept until publish is rewired).
-temperature_cut = temperature_section
 
 
 # ----------------------------------------------------------------------------------------------- stress

@@ -176,5 +176,7 @@ def _present(v) -> bool:
 
 def _source(record: dict, material: str, prop: str) -> str:
     """The source of one property: per property when the summary carries them, else the material's."""
-    src = record.get("material_sources", {}).get(material, "not recorded")
-    return src.get(prop, "not recorded") if isinstance(src, dict) else src
+    per_value = record.get("material_value_sources", {}).get(material, {})
+    if prop in per_value:
+        return per_value[prop]
+    return record.get("material_sources", {}).get(material, "not recorded")
