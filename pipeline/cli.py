@@ -36,6 +36,12 @@ def _parser() -> argparse.ArgumentParser:
     rep = sub.add_parser("report", help="rebuild the figures and report.html of a results folder, without solving")
     rep.add_argument("folder")
     rep.add_argument("--store", help="stage store folder (default: the one the run used)")
+    cmp = sub.add_parser("compare", help="compare two results folders: inputs changed, per-part results side by "
+                                         "side, which fields and figures differ; writes compare.html and .csv")
+    cmp.add_argument("a", metavar="RESULTS_A")
+    cmp.add_argument("b", metavar="RESULTS_B")
+    cmp.add_argument("--out", default="results/compare", help="folder for compare.html, compare.csv and the "
+                                                              "difference figures (default: results/compare)")
     st = sub.add_parser("store", help="list the stage store's entries, or remove old ones")
     st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE or .thermochain-store)")
     st.add_argument("--clean", type=float, metavar="DAYS", help="remove entries not used for DAYS days")
@@ -130,6 +136,17 @@ def _check(args) -> int:
     return 0
 
 
+def _compare(args) -> int:
+    from .outputs import compare
+
+    record = compare.run(args.a, args.b, args.out)
+    if not args.quiet:
+        for line in record["statements"]:
+            print(line)
+        print(f"comparison: {Path(args.out) / 'compare.html'}")
+    return 0
+
+
 def _report(args) -> int:
     from .flow import runner
 
@@ -220,7 +237,11 @@ def _fmt(value) -> str:
 def _print_run(record: dict) -> None:
     from . import kinds
 
+    from .outputs import verdict
+
     print(f"thermochain {record['thermochain']}: {record['workflow']} ({record['status']}, {record['seconds']:.1f} s)")
+    if record.get("verdict"):
+        print("verdict:\n" + verdict.text(record["verdict"]))
     for name, stage in record["stages"].items():
         print(f"stage {name} ({stage['kind']}): {stage['status']} - {stage['reason']}")
         for line in kinds.hook(stage["kind"], "console")(stage):
@@ -235,7 +256,7 @@ def _print_run(record: dict) -> None:
 
 
 COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh, "schema": _schema,
-            "store": _store, "report": _report}
+            "store": _store, "report": _report, "compare": _compare}
 COMMANDS |= {"sweep": lambda args: _study("sweep", args), "converge": lambda args: _study("converge", args)}
 
 

@@ -184,13 +184,30 @@ def report(entry, context: base.OutputContext) -> list[str]:
     from ..outputs.report import table, verdict
 
     required = context.required_safety_factor
+    drawn = {f["part"]: f for f in entry.get("figures", []) if "peak_singular" in f}
+
+    def note(part: str) -> str:
+        f = drawn.get(part)
+        if not f or not f["peak_singular"]:
+            return ""
+        return (f"peak at a singular feature (grows with refinement); away from singular features "
+                f"{f['calm_peak_MPa']:.4g} MPa ({'largest principal' if f['quantity'] == 'principal' else 'von Mises'})")
+
     out = [table(["part", "peak von Mises [MPa]", "at [mm]", "max principal [MPa]", "criterion",
-                  "safety factor", f"verdict (required {required:g})"], [
+                  "safety factor", f"verdict (required {required:g})", "note"], [
         [p, f"{f['von_mises_max_Pa'] / 1e6:.4g}", ", ".join(f"{c * 1e3:.2f}" for c in f["von_mises_max_at_m"]),
          f"{f['principal_max_Pa'] / 1e6:.4g}", f["criterion"],
          "n/a" if f["safety_factor"] is None else f"{f['safety_factor']:.3g}",
-         verdict(None if f["safety_factor"] is None else f["safety_factor"] >= required)]
+         verdict(None if f["safety_factor"] is None else f["safety_factor"] >= required), note(p)]
         for p, f in entry["parts"].items()])]
+    if entry.get("probes"):
+        out.append("<p>Probes (the recovered field at each point):</p>" + table(
+            ["probe", "von Mises [MPa]", "largest principal [MPa]", "displacement [um]", "stress xx, yy, zz [MPa]"], [
+                [name, f"{v['von_mises_Pa'] / 1e6:.4g}",
+                 f"{v['principal_Pa'][0] / 1e6:.4g}" if v.get("principal_Pa") else "-",
+                 ", ".join(f"{c * 1e6:.3g}" for c in v["displacement_m"]),
+                 ", ".join(f"{c / 1e6:.4g}" for c in v["stress_Pa"][:3]) if v.get("stress_Pa") else "-"]
+                for name, v in entry["probes"].items()]))
     eq = entry["equilibrium"]
     out.append(table(["support", "Rx [N]", "Ry [N]", "Rz [N]"], [[k] + [f"{v:.5g}" for v in r]
                                                                 for k, r in entry["reactions_N"].items()]))

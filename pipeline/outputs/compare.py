@@ -140,10 +140,11 @@ def compare_figures(a_dir: Path, b_dir: Path, a: dict, b: dict) -> list[list]:
     for name in sorted(set(a["stages"]) & set(b["stages"])):
         fa = {f["file"] for f in a["stages"][name].get("figures", [])}
         fb = {f["file"] for f in b["stages"][name].get("figures", [])}
+        rows += [[name, file, False, "only in A" if file in fa else "only in B"] for file in sorted(fa ^ fb)]
         for file in sorted(fa & fb):
             ia, ib = imread(a_dir / file), imread(b_dir / file)
             if ia.shape != ib.shape:
-                rows.append([name, file, False, None])
+                rows.append([name, file, False, "sizes differ"])
                 continue
             worst = int(np.abs(ia.astype(float) - ib.astype(float)).max() * 255 + 0.5)
             rows.append([name, file, worst <= SAME_PIXEL, worst])
@@ -261,7 +262,9 @@ def page(out: Path, record: dict) -> str:
                      f"<td{cls}>{'-' if d is None else f'{d:+.4g}'}</td>"])
     body.append("<h2>Per part, side by side</h2>" + _rows(["stage", "part", "quantity", "A", "B", "B - A"], rows))
     body.append("<h2>Figures</h2>" + _rows(["stage", "figure", "A and B", "largest pixel difference [of 255]"], [
-        [s, f, "equal" if same else "differ", "-" if worst is None else worst] for s, f, same, worst in record["figures"]]))
+        [s, f, "equal" if same else "differ", "-" if worst is None else worst] for s, f, same, worst in record["figures"]])
+        + '<p class="notes">A stress figure is drawn for each part that carries the verdict, so a part can have a '
+          "figure in one run only.</p>")
     for fig in record["differences"]:
         data = base64.b64encode((out / fig["file"]).read_bytes()).decode()
         body.append(f'<figure><img alt="{_e(fig["file"])}" src="data:image/png;base64,{data}"><figcaption>'

@@ -103,11 +103,13 @@ h1{{font-size:1.55em;margin:.4em 0 .2em}}h2{{font-size:1.2em;margin-top:1.8em;pa
 border-bottom:1px solid #c9ced6}}h3{{font-size:1.02em;margin-top:1.2em}}
 table{{border-collapse:collapse;margin:.6em 0;font-size:.92em}}td,th{{border-bottom:1px solid #d6d9de;
 padding:.22em .7em;text-align:right;vertical-align:top}}th{{background:#eef1f5;font-weight:600}}
-td:first-child,th:first-child{{text-align:left}}td.text,th.text{{text-align:left}}
+td:first-child,th:first-child{{text-align:left}}.text td,.text th{{text-align:left}}
 .fail{{background:{FAIL};color:white;font-weight:bold}}.near{{background:{NEAR};color:black;font-weight:bold}}
 .pass{{background:{PASS};color:black}}.nolimit{{color:{MUTED}}}
-.verdict{{border:2px solid {INK};padding:.6em 1.2em;margin:1em 0;background:#fdfdfd}}
-.verdict li{{margin:.25em 0}}.flag{{color:{OVER};font-weight:bold}}
+.verdict{{border:2px solid {INK};padding:.2em 1.2em .6em;margin:1em 0;background:#fdfdfd}}
+.verdict ul{{list-style:none;padding-left:0}}.verdict li{{margin:.45em 0}}.flag{{color:{OVER};font-weight:bold}}
+.badge{{display:inline-block;min-width:4.6em;text-align:center;padding:.05em .4em;margin-right:.5em;
+font-size:.85em;font-weight:bold;border:1px solid {INK}}}
 .warn{{background:#fff4e0;border-left:4px solid {NEAR};padding:.5em 1em;margin:.4em 0}}
 .caution{{background:#f0f0f2;border-left:4px solid {MUTED};padding:.7em 1em;font-size:.9em}}
 img{{max-width:100%;border:1px solid #e2e4e8}}figure{{margin:1.2em 0}}

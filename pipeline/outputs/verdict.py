@@ -52,11 +52,15 @@ def verdict(record: dict, limits_degC: dict[str, float], required: float) -> lis
         out.append({"state": _state(f["safety_factor"] / required - 1),
                     "text": f"Lowest safety factor: {low}, {f['safety_factor']:.2f} against the required {required:g} "
                             f"({f['criterion'].split(':')[0]}, {f['strength_Pa'] / 1e6:.0f} MPa)", "note": note})
-        failing = [p for p, g in rated.items() if g["safety_factor"] < required]
+        failing = sorted((p for p, g in rated.items() if g["safety_factor"] < required),
+                         key=lambda p: rated[p]["safety_factor"])
         if failing:
-            out.append({"state": "fail", "text": f"Below the required safety factor: " + ", ".join(
-                f"{p} {rated[p]['safety_factor']:.2f}" for p in sorted(failing, key=lambda p: rated[p]['safety_factor'])),
-                "note": ""})
+            flagged = {p: _singular(st, p) for p in failing}
+            away = [f"{p} {c:.2f}" for p, (s, c) in flagged.items() if s and c]
+            out.append({"state": "fail", "text": "Below the required safety factor: " + ", ".join(
+                f"{p} {rated[p]['safety_factor']:.2f}" + ("*" if flagged[p][0] else "") for p in failing),
+                "note": ("* peak at a singular feature" + (f"; away from singular features: {', '.join(away)}"
+                                                           if away else "")) if any(s for s, _ in flagged.values()) else ""})
     for name, st in heat:
         hot = [p for p, s in st["parts_degC"].items() if p in limits_degC and s["max"] > limits_degC[p]]
         if hot:
