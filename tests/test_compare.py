@@ -62,3 +62,17 @@ def test_page_and_table_carry_the_side_by_side_values(pair):
 def test_a_folder_without_a_summary_is_an_input_error(tmp_path):
     with pytest.raises(errors.InputError, match="no summary.json"):
         compare.run(tmp_path, tmp_path, tmp_path / "out")
+
+
+def test_compare_command_writes_the_page_and_says_what_differs(pair, tmp_path):
+    import subprocess
+    import sys
+
+    tmp, _ = pair
+    r = subprocess.run([sys.executable, "-m", "pipeline", "compare", str(tmp / "housing"), str(tmp / "housing_magnesium"),
+                        "--out", str(tmp_path / "c")], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    assert "heat: results identical" in r.stdout and (tmp_path / "c" / "compare.html").is_file()
+    bad = subprocess.run([sys.executable, "-m", "pipeline", "compare", str(tmp_path / "none"), str(tmp / "housing")],
+                         capture_output=True, text=True)
+    assert bad.returncode == 2 and "no summary.json" in bad.stderr and "Traceback" not in bad.stderr
