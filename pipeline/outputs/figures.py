@@ -152,7 +152,7 @@ def _figure(path: Path, image, title: str, subtitle: str, kind: str | None, clim
     with mpl.rc_context(style.rc()):
         fig = Figure(figsize=style.SIZE, dpi=style.DPI)
         fig.text(0.03, 0.955, title, fontsize=13, fontweight="bold", va="top")
-        fig.text(0.03, 0.905, "\n".join(textwrap.wrap(subtitle, 118)), fontsize=9.5, color=style.MUTED, va="top")
+        fig.text(0.03, 0.905, "\n".join(textwrap.wrap(subtitle, 104)), fontsize=9.5, color=style.MUTED, va="top")
         ax = fig.add_axes((0.01, 0.03, 0.82, 0.80))
         ax.imshow(image)
         ax.set_axis_off()
@@ -167,10 +167,10 @@ def _figure(path: Path, image, title: str, subtitle: str, kind: str | None, clim
             singular = m.get("style") == "singular"
             ax.plot(*m["xy"], marker="D" if singular else "o", ms=9, mfc="none" if singular else style.INK,
                     mec=style.OVER if singular else "white", mew=2.0)
-            dx = -140 if m["xy"][0] > 0.6 * image.shape[1] else 140
+            right = m["xy"][0] > 0.5 * image.shape[1]  # the label runs towards the image's middle
             dy = (-80 if m["xy"][1] > 0.35 * image.shape[0] else 80) * (1 if i % 2 == 0 else -1)
-            ax.annotate(m["text"], m["xy"], xytext=(m["xy"][0] + dx, m["xy"][1] + dy), fontsize=9,
-                        ha="center", color=style.OVER if singular else style.INK,
+            ax.annotate(m["text"], m["xy"], xytext=(m["xy"][0] + (-40 if right else 40), m["xy"][1] + dy),
+                        fontsize=9, ha="right" if right else "left", color=style.OVER if singular else style.INK,
                         arrowprops={"arrowstyle": "-", "color": style.OVER if singular else style.INK, "lw": 1.2},
                         bbox={"boxstyle": "round,pad=0.3", "fc": "white",
                               "ec": style.OVER if singular else style.INK, "lw": 1.0})

@@ -84,7 +84,7 @@ def _singular(st: dict, part: str) -> tuple[bool, float | None]:
 
 def text(lines: list[dict]) -> str:
     """The verdict as plain text for the console (state in words: it must read without colour)."""
-    word = {"pass": "ok  ", "near": "NEAR", "fail": "FAIL", "none": "    "}
+    word = {"pass": "ok  ", "near": "NEAR", "fail": "FAIL", "none": "info"}
     return "\n".join(f"  {word[v['state']]} {v['text']}" + (f"\n         note: {v['note']}" if v["note"] else "")
                      for v in lines)
 
