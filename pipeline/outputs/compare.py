@@ -202,6 +202,11 @@ def run(a_dir: str | Path, b_dir: str | Path, out: str | Path) -> dict:
 def statements(record: dict) -> list[str]:
     """One sentence per stage: identical, or what differs (fields, figures)."""
     out = []
+    for stage in sorted({r["stage"] for r in record["quantities"] if r["quantity"] == "safety factor"}):
+        rows = [r for r in record["quantities"] if r["stage"] == stage and r["quantity"] == "safety factor"]
+        low = [min(((r[k], r["part"]) for r in rows if r[k] is not None), default=None) for k in ("a", "b")]
+        if all(low):
+            out.append(f"{stage}: lowest safety factor A {low[0][1]} {low[0][0]:.3g}, B {low[1][1]} {low[1][0]:.3g}.")
     for name, st in record["stages"].items():
         figs = [r for r in record["figures"] if r[0] == name]
         same_figs = all(r[2] for r in figs)
@@ -253,11 +258,12 @@ def page(out: Path, record: dict) -> str:
             '<section class="verdict"><h2>What differs</h2><ul>'
             + "".join(f"<li>{_e(s)}</li>" for s in record["statements"]) + "</ul></section>",
             "<h2>Inputs changed</h2>"
-            + (_rows(["stage", "key path", "A", "B"], record["inputs"]) if record["inputs"] else "<p>None.</p>")]
+            + (f'<div class="text">{_rows(["stage", "key path", "A", "B"], record["inputs"])}</div>'
+               if record["inputs"] else "<p>None.</p>")]
     rows = []
     for r in record["quantities"]:
         d = r["delta"]
-        cls = "" if d is None or abs(d) <= 1e-12 * max(abs(r["a"] or 0), 1) else ' class="near"'
+        cls = "" if d is None or abs(d) <= 1e-12 * max(abs(r["a"] or 0), 1) else ' class="changed"'
         rows.append([r["stage"], r["part"], f"{r['quantity']} [{r['unit']}]", _num(r["a"]), _num(r["b"]),
                      f"<td{cls}>{'-' if d is None else f'{d:+.4g}'}</td>"])
     body.append("<h2>Per part, side by side</h2>" + _rows(["stage", "part", "quantity", "A", "B", "B - A"], rows))

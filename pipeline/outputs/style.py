@@ -105,7 +105,7 @@ table{{border-collapse:collapse;margin:.6em 0;font-size:.92em}}td,th{{border-bot
 padding:.22em .7em;text-align:right;vertical-align:top}}th{{background:#eef1f5;font-weight:600}}
 td:first-child,th:first-child{{text-align:left}}.text td,.text th{{text-align:left}}
 .fail{{background:{FAIL};color:white;font-weight:bold}}.near{{background:{NEAR};color:black;font-weight:bold}}
-.pass{{background:{PASS};color:black}}.nolimit{{color:{MUTED}}}
+.pass{{background:{PASS};color:black}}.nolimit{{color:{MUTED}}}.changed{{font-weight:bold;background:#e6e9ee}}
 .verdict{{border:2px solid {INK};padding:.2em 1.2em .6em;margin:1em 0;background:#fdfdfd}}
 .verdict ul{{list-style:none;padding-left:0}}.verdict li{{margin:.45em 0}}.flag{{color:{OVER};font-weight:bold}}
 .badge{{display:inline-block;min-width:4.6em;text-align:center;padding:.05em .4em;margin-right:.5em;
