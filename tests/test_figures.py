@@ -10,7 +10,6 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from pipeline.flow import runner
 from pipeline.model.units import celsius
 from pipeline.outputs import figures, style
 from pipeline.stages import constitutive
@@ -21,25 +20,15 @@ HOUSING = ROOT / "workflows" / "housing.toml"
 OUTSIDE = ("outside", "fins", "base", "bolt_1", "bolt_2", "bolt_3", "bolt_4")
 
 
-def stored(folder: Path, store: Path):
-    """The summary, results and domains of a results folder, read back from the store."""
-    record = runner._previous(folder)
-    p = runner.plan(record["workflow_path"], record.get("sets"), str(store), str(folder))
-    results, domains = {}, {}
-    for s in p.stages:
-        results[s.name] = runner.RESULT[s.kind].from_arrays(*p.store.get(s.kind, s.key))
-        domains[s.name] = s.domain
-    return record, results, domains
-
-
 @pytest.fixture(scope="module")
 def housing(tmp_path_factory):
+    import pipeline
+
     tmp = tmp_path_factory.mktemp("housing")
-    runner.run(HOUSING, ["output.figures=false", "output.report=false", "output.vtu=false"],
-               store=tmp / "store", out=tmp / "out")
-    record, results, domains = stored(tmp / "out", tmp / "store")
-    return SimpleNamespace(record=record, heat=results["heat"], stress=results["stress"],
-                           domain=domains["heat"], sdomain=domains["stress"], dir=tmp)
+    run = pipeline.run(HOUSING, ["output.figures=false", "output.report=false", "output.vtu=false"],
+                       store=str(tmp / "store"), out=str(tmp / "out"))
+    return SimpleNamespace(record=run.summary, heat=run["heat"].result, stress=run["stress"].result,
+                           domain=run["heat"].domain, sdomain=run["stress"].domain, dir=tmp)
 
 
 def singular_nodes(domain, supports) -> np.ndarray:
