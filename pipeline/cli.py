@@ -24,7 +24,8 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", required=True)
     for name, text in (("run", "run a workflow (reusing unchanged stages) and write its results folder"),
                        ("check", "validate a workflow and its mesh without solving; print the plan")):
-        cmd = sub.add_parser(name, help=text)
+        cmd = sub.add_parser(name, help=text, description=text, epilog=EXAMPLES[name],
+                             formatter_class=argparse.RawDescriptionHelpFormatter)
         cmd.add_argument("workflow")
         cmd.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                          help="override a value by its key path, e.g. stages.heat.power.chip=3.0")
@@ -32,23 +33,28 @@ def _parser() -> argparse.ArgumentParser:
         cmd.add_argument("--out", help="results folder (default: the workflow's output.folder)")
         cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or "
                                          ".thermochain-store beside the workflow)")
-    sub.add_parser("schema", help="print the JSON Schema of workflow files")
-    rep = sub.add_parser("report", help="rebuild the figures and report.html of a results folder, without solving")
+    check = sub.choices["check"]
+    check.add_argument("--json", action="store_true", help="print the plan as JSON")
+    _command(sub, "schema", "print the JSON Schema of workflow files")
+    rep = _command(sub, "report", "rebuild the figures and report.html of a results folder, without solving")
     rep.add_argument("folder")
     rep.add_argument("--store", help="stage store folder (default: the one the run used)")
-    cmp = sub.add_parser("compare", help="compare two results folders: inputs changed, per-part results side by "
-                                         "side, which fields and figures differ; writes compare.html and .csv")
+    cmp = _command(sub, "compare", "compare two results folders: inputs changed, per-part results side by side, "
+                                   "which fields and figures differ; writes compare.html and compare.csv")
     cmp.add_argument("a", metavar="RESULTS_A")
     cmp.add_argument("b", metavar="RESULTS_B")
     cmp.add_argument("--out", default="results/compare", help="folder for compare.html, compare.csv and the "
                                                               "difference figures (default: results/compare)")
-    st = sub.add_parser("store", help="list the stage store's entries, or remove old ones")
+    st = _command(sub, "store", "list the stage store's entries, or remove old ones")
+    st.add_argument("--json", action="store_true", help="print the entries as JSON")
     st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE or .thermochain-store)")
     st.add_argument("--clean", type=float, metavar="DAYS", help="remove entries not used for DAYS days")
-    mats = sub.add_parser("materials", help="list the material library with units and sources")
+    mats = _command(sub, "materials", "list the material library with units and sources")
+    mats.add_argument("--json", action="store_true", help="print every property with its unit and source as JSON")
     mats.add_argument("name", nargs="?", help="show one material in full")
     mats.add_argument("--file", help="a materials TOML file to add to the library")
-    ins = sub.add_parser("mesh", help="read a mesh and list its parts, surfaces, interfaces and bounding box")
+    ins = _command(sub, "mesh", "read a mesh and list its parts, surfaces, interfaces and bounding box")
+    ins.add_argument("--json", action="store_true", help="print it as JSON (SI units)")
     ins.add_argument("file")
     ins.add_argument("--unit", required=True, help="length unit of the mesh: m, cm, mm, um or in")
     _study_parsers(sub)
@@ -56,10 +62,32 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+#: an example for each subcommand's --help
+EXAMPLES = {
+    "run": "example:\n  thermochain run workflows/housing.toml --set stages.heat.power.cpu=12 --out results/cpu12",
+    "check": "example:\n  thermochain check workflows/housing_magnesium.toml   # which stages would rerun, and why",
+    "schema": "example:\n  thermochain schema > workflow.schema.json   # for an editor's TOML/JSON validation",
+    "report": "example:\n  thermochain report results/housing",
+    "compare": "example:\n  thermochain compare results/housing results/housing_magnesium --out results/compare",
+    "store": "examples:\n  thermochain store --json\n  thermochain store .thermochain-store --clean 30",
+    "materials": "examples:\n  thermochain materials fr4\n  thermochain materials --file my_materials.toml --json",
+    "mesh": "example:\n  thermochain mesh cases/housing/housing_coarse.msh --unit mm",
+    "sweep": "example:\n  thermochain sweep workflows/housing_sweep.toml --workers 2",
+    "converge": "example:\n  thermochain converge workflows/heat_spreader.toml --levels 3 --quantity heat.chip.max_degC",
+    "verify": "examples:\n  thermochain verify --quick\n  thermochain verify --fine --table docs/verification.md",
+}
+
+
+def _command(sub, name: str, text: str) -> argparse.ArgumentParser:
+    """A subcommand with its help text and an example in its --help."""
+    return sub.add_parser(name, help=text, description=text, epilog=EXAMPLES[name],
+                          formatter_class=argparse.RawDescriptionHelpFormatter)
+
+
 def _study_parsers(sub) -> None:
     """The ``sweep`` and ``converge`` subcommands (pipeline/studies, docs/studies.md)."""
-    sw = sub.add_parser("sweep", help="run a workflow for every combination of swept values (grid or paired lists)")
-    cv = sub.add_parser("converge", help="run a workflow on refined meshes; observed order, Richardson estimate, GCI")
+    sw = _command(sub, "sweep", "run a workflow for every combination of swept values (grid or paired lists)")
+    cv = _command(sub, "converge", "run a workflow on refined meshes; observed order, Richardson estimate, GCI")
     for cmd in (sw, cv):
         cmd.add_argument("workflow")
         cmd.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
@@ -126,6 +154,12 @@ def _check(args) -> int:
     from .flow import runner
 
     plan, decisions = runner.check(args.workflow, args.set, args.store, args.out, args.rerun)
+    if args.json:
+        _print_json({"workflow": str(plan.path), "store": str(plan.store.root), "folder": str(plan.folder),
+                     "mesh": plan.domain.to_dict(),
+                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source, "key": s.key,
+                                 "reuse": decisions[s.name][0], "reason": decisions[s.name][1]} for s in plan.stages]})
+        return 0
     if not args.quiet:
         print(plan.domain.describe())
         print(f"store: {plan.store.root}")
@@ -133,6 +167,8 @@ def _check(args) -> int:
             reuse, reason = decisions[s.name]
             reads = f", reads {s.source}" if s.source else ""
             print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
+            for note in s.notices:
+                print(f"  note: {note}")
     return 0
 
 
@@ -179,6 +215,10 @@ def _store(args) -> int:
         print(f"removed {len(removed)} entries from {root}")
         return 0
     entries = s.entries()
+    if args.json:
+        _print_json({"store": str(root), "entries": [{"kind": e.kind, "key": e.key, "bytes": e.size,
+                                                       "last_used": e.last_used} for e in entries]})
+        return 0
     for e in entries:
         age = (time.time() - e.last_used) / 86400
         print(f"{e.kind:<7} {e.key[:16]}  {e.size / 1e6:9.3f} MB  last used {age:6.1f} days ago")
@@ -193,6 +233,10 @@ def _materials(args) -> int:
     from .model import materials
 
     lib = materials.read_file(args.file, materials.library()) if args.file else materials.library()
+    if args.json:
+        chosen = [lib[args.name]] if args.name else [lib[n] for n in lib]
+        _print_json({"materials": [m.to_dict() for m in chosen]})
+        return 0
     console = Console(width=None if sys.stdout.isatty() else 160)
     if args.name:
         m = lib[args.name]
@@ -224,8 +268,18 @@ def _materials(args) -> int:
 def _mesh(args) -> int:
     from .model import mesh
 
-    print(mesh.load(args.file, unit=args.unit).describe())
+    domain = mesh.load(args.file, unit=args.unit)
+    if args.json:
+        _print_json(domain.to_dict())
+    else:
+        print(domain.describe())
     return 0
+
+
+def _print_json(data: dict) -> None:
+    import json
+
+    print(json.dumps(data, indent=2, allow_nan=False, default=float))
 
 
 def _fmt(value) -> str:
@@ -262,8 +316,8 @@ COMMANDS |= {"sweep": lambda args: _study("sweep", args), "converge": lambda arg
 
 def _verify_parser(sub) -> None:
     """The ``verify`` subcommand (pipeline/verification, docs/verification.md)."""
-    vf = sub.add_parser("verify", help="run the verification cases (benchmarks, closed forms, convergence orders) "
-                                       "and write their table; exit 0 only when every case passes")
+    vf = _command(sub, "verify", "run the verification cases (benchmarks, closed forms, convergence orders) "
+                                 "and write their table; exit 0 only when every case passes")
     level = vf.add_mutually_exclusive_group()
     level.add_argument("--quick", dest="level", action="store_const", const="quick",
                        help="coarse meshes: seconds (what the tests run)")

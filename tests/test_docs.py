@@ -19,3 +19,17 @@ def test_python_examples_run(document, monkeypatch):
     for code in blocks:
         exec(compile(code, document, "exec"), {})
     assert os.getcwd() == str(ROOT)
+
+
+def test_the_key_tables_of_the_workflow_document_are_the_schema_s():
+    """docs/workflow.md's key tables are generated from the schema (every key, its unit, default and
+    meaning); a key added to a stage kind without regenerating them fails here.
+    Regenerate with: python -m pipeline.flow.keys docs/workflow.md"""
+    from pipeline.flow import keys
+
+    text = (ROOT / "docs" / "workflow.md").read_text()
+    sections = {m.group("section") for m in keys.MARKER.finditer(text)}
+    assert sections == set(keys.tables()), "every stage kind has a key table in docs/workflow.md"
+    assert keys.rewrite(text) == text, "run: python -m pipeline.flow.keys docs/workflow.md"
+    for key in ("`adiabatic`", "`memory_limit`", "`convection.SURFACE.reference_difference`"):
+        assert key in text

@@ -97,3 +97,42 @@ def test_two_runs_on_one_store_compute_each_stage_once(tmp_path, monkeypatch):
         t.join()
     assert len(results) == 2 and len(calls) == 1
     assert sorted(r["stages"]["heat"]["status"] for r in results) == ["computed", "reused"]
+
+
+def _validator():
+    import jsonschema
+
+    schema = wf.schema()
+    jsonschema.Draft202012Validator.check_schema(schema)
+    return jsonschema.Draft202012Validator(schema)
+
+
+SHIPPED = sorted((ROOT / "workflows").glob("*.toml")) + sorted((ROOT / "pipeline/verification/cases").glob("*.toml"))
+
+
+@pytest.mark.parametrize("path", SHIPPED, ids=lambda p: p.name)
+def test_every_shipped_workflow_is_valid_under_the_json_schema(path):
+    """A real JSON Schema validator (draft 2020-12) accepts every shipped workflow: quantities with units,
+    ``extends`` files that give only what they change; a ``_name.toml`` base is only ever extended, so it
+    is checked as a file that may leave keys out."""
+    import tomllib
+
+    data = tomllib.loads(path.read_text())
+    validator = _validator()
+    if path.name.startswith("_"):
+        import jsonschema
+
+        validator = jsonschema.Draft202012Validator(validator.schema["then"] | {"$defs": validator.schema["$defs"]})
+    assert [e.message for e in validator.iter_errors(data)] == []
+
+
+def test_the_json_schema_rejects_what_the_loader_rejects():
+    import tomllib
+
+    data = tomllib.loads((ROOT / "workflows" / "heat_spreader.toml").read_text())
+    validator = _validator()
+    bad = dict(data, stages=dict(data["stages"], heat=dict(data["stages"]["heat"], powr={"chip": 1.0})))
+    assert any("powr" in e.message for e in validator.iter_errors(bad))
+    worse = dict(data, stages=dict(data["stages"], heat=dict(data["stages"]["heat"], order=3)))
+    assert list(validator.iter_errors(worse))
+    assert list(validator.iter_errors({"title": "no mesh, no parts, no stages"}))

@@ -15,7 +15,7 @@ import typing
 from pathlib import Path
 from typing import Annotated, Literal, Union
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, create_model
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, WithJsonSchema, create_model
 
 from .. import errors
 from ..model.finishes import FINISHES
@@ -23,9 +23,21 @@ from ..model.units import to_si
 from ..stages import solvers
 
 
+#: JSON Schema words for pydantic's bounds
+_JSON_BOUNDS = {"gt": "exclusiveMinimum", "ge": "minimum", "lt": "exclusiveMaximum", "le": "maximum"}
+
+
+def _quantity_schema(unit: str, bounds: dict) -> WithJsonSchema:
+    """In JSON Schema a quantity is a number in SI units (with its bounds) or a string with a unit."""
+    number = {"type": "number", "description": f"[{unit}]"} | {_JSON_BOUNDS[k]: v for k, v in bounds.items()}
+    text = {"type": "string", "description": f"a number and a unit of the dimension of {unit}, e.g. \"2 mm\""}
+    return WithJsonSchema({"anyOf": [number, text], "description": f"[{unit}]", "x-unit": unit})
+
+
 def quantity(unit: str, **bounds):
     """A finite float in ``unit`` (SI) that may be written as a string with any unit of the same dimension."""
-    return Annotated[float, BeforeValidator(lambda v: _finite_si(v, unit)), Field(description=f"[{unit}]", **bounds)]
+    return Annotated[float, BeforeValidator(lambda v: _finite_si(v, unit)), Field(description=f"[{unit}]", **bounds),
+                     _quantity_schema(unit, bounds)]
 
 
 def _finite_si(value, unit: str) -> float:
@@ -46,7 +58,8 @@ def _temperature(value) -> float:
     return kelvin
 
 
-Temperature = Annotated[float, BeforeValidator(_temperature), Field(description="[K]", ge=0)]
+Temperature = Annotated[float, BeforeValidator(_temperature), Field(description="[K]", ge=0),
+                        _quantity_schema("K", {"ge": 0})]
 Length = quantity("m")
 PositiveLength = quantity("m", gt=0)
 Power = quantity("W")
@@ -81,20 +94,20 @@ class Strict(BaseModel):
 
 
 class MeshSection(Strict):
-    file: str = Field(description="mesh file, relative to the workflow file; any format meshio reads")
+    file: str = Field(description="mesh file, relative to the workflow file; any format meshio reads (Gmsh MSH 2.2/4.1 is the main path)")
     unit: LengthUnit = Field(description="length unit the mesh was drawn in")
 
 
 class PartSection(Strict):
-    material: str = Field(description="name in the material library or in [materials]")
+    material: str = Field(description="the part's material: a name in the material library or in [materials]")
     axes: list[list[float]] | None = Field(
-        default=None, description="material x and y (and z) directions in model coordinates, for orthotropic parts")
-    temperature_limit: Temperature | None = Field(default=None, description="highest allowed temperature [K]")
+        default=None, description="material x and y (and z) directions in model coordinates, for orthotropic parts (default: the model axes)")
+    temperature_limit: Temperature | None = Field(default=None, description="the part's allowed peak temperature, checked in the report")
 
 
 class OutputSection(Strict):
     folder: str = Field(default="results", description="results folder, relative to the workflow file")
-    vtu: bool = True
+    vtu: bool = Field(default=True, description="write `<stage>.vtu` for stages with fields, and `results.pvd`")
     figures: bool = Field(default=True, description="PNG figures (pyvista off-screen, matplotlib)")
     report: bool = Field(default=True, description="report.html with the figures embedded")
     required_safety_factor: Annotated[float, Field(gt=0)] = Field(
@@ -104,11 +117,12 @@ class OutputSection(Strict):
 class WorkflowBase(Strict):
     """The workflow file's tables except ``stages``, whose members come from the stage kinds."""
 
-    title: str = ""
+    title: str = Field(default="", description="shown in the summary and the report")
     mesh: MeshSection
-    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, as in the library")
+    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]")
     parts: dict[str, PartSection]
-    probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
+    probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(
+        default_factory=dict, description="named points (x, y, z) whose values every stage reports")
     output: OutputSection = OutputSection()
     # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
     # is in no store key
@@ -298,8 +312,40 @@ def _cycles(path: Path, workflow: WorkflowBase) -> list[str]:
 
 
 def schema() -> dict:
-    """The JSON Schema of a workflow file (for editors)."""
-    return model().model_json_schema()
+    """The JSON Schema of a workflow file (for editors and validators).
+
+    A file with ``extends`` may leave out anything its base gives, so it is checked against the same
+    tables with no key required; a file without it must be complete."""
+    full = model().model_json_schema()
+    defs = full.pop("$defs", {})
+    partial = _partial({"$defs": defs} | full)
+    full["properties"]["extends"] = {"type": "string", "description": "a workflow file this one is merged over"}
+    partial["properties"]["extends"] = {"type": "string", "description": "a workflow file this one is merged over"}
+    partial_defs = partial.pop("$defs")
+    title = full.pop("title", "Workflow")
+    return {"$schema": "https://json-schema.org/draft/2020-12/schema", "title": title,
+            "description": "A thermochain workflow file (TOML; docs/workflow.md)",
+            "$defs": defs | {f"{k}Partial": v for k, v in partial_defs.items()},
+            "if": {"required": ["extends"]}, "then": partial, "else": full}
+
+
+def _partial(node):
+    """A copy of a schema with no required keys and no discriminator, its references renamed."""
+    if isinstance(node, list):
+        return [_partial(v) for v in node]
+    if not isinstance(node, dict):
+        return node
+    out = {}
+    for k, v in node.items():
+        if k == "required" or k == "discriminator":
+            continue
+        if k == "$ref" and isinstance(v, str):
+            out[k] = f"{v}Partial"
+        elif k == "oneOf":
+            out["anyOf"] = _partial(v)
+        else:
+            out[k] = _partial(v)
+    return out
 
 
 def _messages(path: Path, found: list[dict], raw: dict) -> list[str]:

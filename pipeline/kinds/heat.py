@@ -24,17 +24,17 @@ READS = ("conductivity",)
 
 
 class ConvectionSection(Strict):
-    film_coefficient: FilmCoefficient
-    ambient: Temperature
-    exponent: Annotated[float, Field(ge=0)] = Field(default=0.0, description="h = film_coefficient * "
-                                                    "(|T - ambient| / reference_difference)^exponent")
-    reference_difference: quantity("K", gt=0) = Field(default=1.0, description="temperature difference [K] "
-                                                      "at which h equals film_coefficient")
+    film_coefficient: FilmCoefficient = Field(description="film coefficient")
+    ambient: Temperature = Field(description="ambient temperature")
+    exponent: Annotated[float, Field(ge=0)] = Field(default=0.0, description="power law h = film_coefficient "
+                                                    "(abs(T - ambient) / reference_difference)^exponent (0.25: laminar natural convection)")
+    reference_difference: quantity("K", gt=0) = Field(default=1.0, description="temperature difference at "
+                                                      "which h equals film_coefficient")
 
 
 class RadiationSection(Strict):
-    emissivity: Emissivity = Field(description="0..1 or a finish name")
-    surroundings: Temperature
+    emissivity: Emissivity = Field(description="0..1, or a finish name: " + ", ".join(f"`{k}` {v[0]:g}" for k, v in finishes.FINISHES.items()) + " (sources in pipeline/model/finishes.py)")
+    surroundings: Temperature = Field(description="temperature of the surroundings")
 
 
 class FluxSection(Strict):
@@ -44,17 +44,17 @@ class FluxSection(Strict):
 
 class HeatStage(Strict):
     kind: Literal["heat"]
-    order: Literal[1, 2] = 1
-    solver: SolverMethod = "auto"
+    order: Literal[1, 2] = Field(default=1, description="element order")
+    solver: SolverMethod = Field(default="auto", description="linear solver (auto: by size, docs/performance.md)")
     memory_limit: MemoryLimit = None
-    materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
-    power: dict[str, Power] = Field(default_factory=dict, description="part -> W")
-    generation: dict[str, Generation] = Field(default_factory=dict, description="part -> W/m^3")
-    flux: dict[str, FluxSection] = Field(default_factory=dict)
+    materials: dict[str, str] = Field(default_factory=dict, description="material for this stage only")
+    power: dict[str, Power] = Field(default_factory=dict, description="power spread over the part's meshed volume")
+    generation: dict[str, Generation] = Field(default_factory=dict, description="volumetric generation")
+    flux: dict[str, FluxSection] = Field(default_factory=dict, description="heat flux into the body")
     convection: dict[str, ConvectionSection] = Field(default_factory=dict)
     radiation: dict[str, RadiationSection] = Field(default_factory=dict)
-    fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="surface -> K")
-    max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most")
+    fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="fixed temperature; not combined with another condition on the same surface")
+    max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most (nonlinear problems)")
     adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
                                  "planes, insulation): not warned about")
 

@@ -25,16 +25,16 @@ READS: tuple[str, ...] = ()
 class MapStage(Strict):
     kind: Literal["map"]
     source: str | None = Field(default=None, description="the heat stage whose temperatures are mapped")
-    file: str | None = Field(default=None, description="or an external field: VTU point data or CSV x, y, z, T")
-    array: str | None = Field(default=None, description="point-data array of the VTU file")
+    file: str | None = Field(default=None, description="or an external field: VTU point data or CSV `x, y, z, T` (a header row is skipped)")
+    array: str | None = Field(default=None, description="point-data array of the VTU file (default: the only one)")
     file_unit: LengthUnit = Field(default="m", description="length unit of the file's coordinates")
-    temperature_unit: Literal["K", "degC"] = "K"
-    mesh: MeshSection | None = Field(default=None, description="structural mesh, if not the workflow's mesh")
-    reference: Temperature = Field(default=293.15, description="stress-free temperature [K]")
-    reference_by_part: dict[str, Temperature] = Field(default_factory=dict)
-    tolerance: PositiveLength | None = Field(default=None, description="distance outside the source that is "
-                                             "accepted [m]; default half the source's median edge")
-    order: Literal[1, 2] = Field(default=1, description="order of a cross-mesh or external field")
+    temperature_unit: Literal["K", "degC"] = Field(default="K", description="unit of the file's temperatures")
+    mesh: MeshSection | None = Field(default=None, description="a different structural mesh (cross-mesh mapping); default: the workflow's mesh")
+    reference: Temperature = Field(default=293.15, description="stress-free temperature")
+    reference_by_part: dict[str, Temperature] = Field(default_factory=dict, description="stress-free temperature of one part")
+    tolerance: PositiveLength | None = Field(default=None, description="distance outside the source still "
+                                             "accepted (nearest value, counted); default half the source's median edge")
+    order: Literal[1, 2] = Field(default=1, description="order of a cross-mesh or external field (same mesh keeps the heat stage's order)")
 
     @model_validator(mode="after")
     def _one_source(self):

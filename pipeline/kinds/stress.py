@@ -25,24 +25,26 @@ READS = ("youngs_modulus", "poisson_ratio", "shear_modulus", "expansion", "densi
 
 
 class SupportSection(Strict):
-    kind: Literal[supports.KINDS]  # type: ignore[valid-type]
-    x: Length | None = None
-    y: Length | None = None
-    z: Length | None = None
-    stiffness: SpringStiffness | None = Field(default=None, description="spring stiffness per area [N/m^3]")
+    kind: Literal[supports.KINDS] = Field(description="support; `minimal` takes any name that is not a surface")  # type: ignore[valid-type]
+    x: Length | None = Field(default=None, description="given displacement component (`displacement`); default free")
+    y: Length | None = Field(default=None, description="given displacement component (`displacement`); default free")
+    z: Length | None = Field(default=None, description="given displacement component (`displacement`); default free")
+    stiffness: SpringStiffness | None = Field(default=None, description="stiffness per area (required for `spring`)")
 
 
 class StressStage(Strict):
     kind: Literal["stress"]
-    source: str | None = Field(default=None, description="the map stage that gives the temperatures")
-    order: Literal[1, 2] = 2
-    solver: SolverMethod = "auto"
+    source: str | None = Field(default=None, description="the map stage that gives the temperatures (none: no thermal load)")
+    order: Literal[1, 2] = Field(default=2, description="element order")
+    solver: SolverMethod = Field(default="auto", description="linear solver (auto: by size, docs/performance.md)")
     memory_limit: MemoryLimit = None
-    materials: dict[str, str] = Field(default_factory=dict, description="part -> material, for this stage only")
-    supports: dict[str, SupportSection] = Field(description="surface (or any name for 'minimal') -> support")
-    pressure: dict[str, Pressure] = Field(default_factory=dict, description="surface -> Pa")
-    force: dict[str, Annotated[list[Force], Field(min_length=3, max_length=3)]] = Field(default_factory=dict)
-    gravity: Annotated[list[Acceleration], Field(min_length=3, max_length=3)] | None = None
+    materials: dict[str, str] = Field(default_factory=dict, description="material for this stage only (e.g. a shell swap that keeps the heat result)")
+    supports: dict[str, SupportSection] = Field(description="supports by surface")
+    pressure: dict[str, Pressure] = Field(default_factory=dict, description="pressure (positive pushes on the surface)")
+    force: dict[str, Annotated[list[Force], Field(min_length=3, max_length=3)]] = Field(
+        default_factory=dict, description="total force spread evenly over the surface")
+    gravity: Annotated[list[Acceleration], Field(min_length=3, max_length=3)] | None = Field(
+        default=None, description="gravity acting on each part's density")
 
 
 Schema = StressStage
@@ -65,7 +67,10 @@ def plan(ctx: base.Context, name: str, stage: StressStage, where: str) -> base.S
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes,
         "upstream": upstream.key if upstream else None}
-    return base.StagePlan(name, NAME, domain, spec, inputs, source=stage.source, materials=names)
+    plan = base.StagePlan(name, NAME, domain, spec, inputs, source=stage.source, materials=names)
+    hard = stress.risk(domain, spec, where)  # a stiffness contrast or a nearly incompressible part
+    plan.notices = [Notice.of(hard)] if hard else []
+    return plan
 
 
 def compute(plan: base.StagePlan, upstream) -> StressField:
@@ -83,8 +88,9 @@ def summary(plan: base.StagePlan, field: StressField) -> dict:
         "probes": dict(field.probes),
         "displacement_max_m": float(np.linalg.norm(field.displacement, axis=1).max()),
         "solver": field.solver.to_dict() | {"history": []},
-        "notices": [str(n) for n in field.notices],
+        "notices": [str(n) for n in list(plan.notices) + list(field.notices)],
         "notice_records": [Notice.of(n).to_dict() for n in field.notices],
+        "planning_notices": [n.to_dict() for n in plan.notices],
         "support_surfaces": [n for n, v in sups.items() if v.kind != "minimal"],
         "fixed_supports": [n for n, v in sups.items() if v.kind == "fixed"],
     }
@@ -145,7 +151,7 @@ SINGULAR_PEAK = "stress.singular_peak"
 
 
 def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
-    out = []
+    out = [Notice.of(n) for n in entry.get("planning_notices", [])]  # e.g. solver.hard_system
     required = context.required_safety_factor
     edges = _singular_nodes(domain, entry.get("support_surfaces", []))
     for part, f in entry["parts"].items():

@@ -63,6 +63,23 @@ class Material:
     conductivity_table: tuple[tuple[float, ...], ...] = ()
     conductivity_polynomial: tuple[float, ...] = ()
 
+    def __repr__(self) -> str:
+        k = "k(T)" if self.conductivity_varies else f"k {', '.join(f'{v:.4g}' for v in self.conductivity)} W/(m K)"
+        e = ", ".join(f"{v / 1e9:.4g}" for v in self.youngs_modulus)
+        a = ", ".join(f"{v * 1e6:.3g}" for v in self.expansion)
+        return f"<Material {self.name} ({self.kind}): {k}, E {e} GPa, alpha {a} 1e-6/K>"
+
+    def to_dict(self) -> dict:
+        """Every property in SI units, with its source (as ``thermochain materials --json`` prints it)."""
+        out = {}
+        for prop in UNITS:
+            value = getattr(self, prop)
+            if value not in (None, ()):
+                out[prop] = {"value": list(value) if isinstance(value, tuple) else value, "unit": UNITS[prop],
+                             "source": self.sources.get(prop, "")}
+        return {"name": self.name, "title": self.title, "kind": self.kind, "brittle": self.brittle,
+                "note": self.note, "properties": out}
+
     @property
     def conductivity_varies(self) -> bool:
         return bool(self.conductivity_table or self.conductivity_polynomial)
@@ -251,6 +268,11 @@ class Library:
 
     def __len__(self) -> int:
         return len(self.materials)
+
+    def __repr__(self) -> str:
+        names = sorted(self.materials)
+        shown = ", ".join(names[:6]) + (f", ... ({len(names) - 6} more)" if len(names) > 6 else "")
+        return f"<Library of {len(names)} materials: {shown}>"
 
     def extended(self, records: dict, where: str) -> "Library":
         """A library with ``records`` (name -> TOML table) added; a name already present is replaced."""

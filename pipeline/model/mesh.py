@@ -141,6 +141,17 @@ class Domain:
             f"surfaces {sorted(self.surfaces)}; {len(self.interfaces)} interfaces>"
         )
 
+    def to_dict(self) -> dict:
+        """What ``describe`` says, as plain data (SI units): ``thermochain mesh --json``."""
+        lo, hi = self.bounding_box
+        return {"file": self.source, "unit": self.unit, "nodes": len(self.points), "tetrahedra": len(self.tetrahedra),
+                "bounding_box_m": [lo.tolist(), hi.tolist()],
+                "parts": {n: {"elements": len(self.parts[n]), "volume_m3": self.part_volume(n)} for n in sorted(self.parts)},
+                "surfaces": {n: {"facets": len(self.surfaces[n]),
+                                 "area_m2": float(self.facet_areas(self.surfaces[n]).sum())} for n in sorted(self.surfaces)},
+                "interfaces": [{"parts": [a, b], "facets": len(f)} for (a, b), f in sorted(self.interfaces.items())],
+                "notices": [str(n) for n in self.notices]}
+
     def describe(self) -> str:
         """Multi-line summary: bounding box in metres, parts with volumes, surfaces with areas."""
         lo, hi = self.bounding_box

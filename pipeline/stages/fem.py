@@ -45,7 +45,15 @@ def part_values(domain, per_part: dict[str, float], default: float = 0.0) -> np.
 
 def probe_points(domain, probes, where: str) -> tuple[list[str], np.ndarray, np.ndarray]:
     """Names, (3, n) coordinates [m] and containing elements of probes; a probe outside the mesh is an
-    ``InputError``."""
+    ``InputError``.  Located once per domain and set of probes (planning checks them, the solve reuses it)."""
+    key = ("probes", tuple((n, tuple(map(float, xyz))) for n, xyz in probes.items()))
+    if key not in domain._cache:
+        domain._cache[key] = _locate_probes(domain, probes, where)
+    names, points, cells = domain._cache[key]
+    return list(names), points.copy(), cells.copy()
+
+
+def _locate_probes(domain, probes, where: str) -> tuple[list[str], np.ndarray, np.ndarray]:
     names = list(probes)
     points = np.array([probes[n] for n in names], dtype=float).reshape(-1, 3).T
     finder = domain.mesh.element_finder()

@@ -343,7 +343,7 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
         A = J if len(free) == len(T) else J[free][:, free]
-        delta, record = solvers.solve_spd(A, -r[free], method=spec.solver)
+        delta, record = solvers.solve(A, -r[free], method=spec.solver, memory_limit=spec.memory_limit)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()
