@@ -341,6 +341,11 @@ def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | No
     name = QUANTITIES[quantity]
     nv = len(domain.points)
     flagged = np.isin(ids, np.asarray(singular if singular is not None else [], dtype=int))
+    mid = ids >= nv
+    if mid.any() and singular is not None:  # a P2 edge point is singular where an end of its edge is
+        vertex = np.zeros(nv, dtype=bool)
+        vertex[np.asarray(singular, dtype=int)] = True
+        flagged[mid] = vertex[domain.mesh.edges[:, ids[mid] - nv]].any(axis=0)
     i_peak = int(np.argmax(vm))
     tets = domain.tetrahedra[domain.parts[part]]
     body = _pieces(np.concatenate([tets[:, :3], tets[:, 1:]]), nv)
