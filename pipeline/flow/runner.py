@@ -361,12 +361,21 @@ def _material_sources(p: Plan) -> dict[str, str]:
     return out
 
 
+def _value_sources(p: Plan) -> dict[str, dict[str, str]]:
+    """material -> property -> its source (the report footnotes each value with it)."""
+    out: dict[str, dict[str, str]] = {}
+    for s in p.stages:
+        for part, material in getattr(s.spec, "materials", {}).items():
+            out.setdefault(s.materials[part], {}).update(material.sources)
+    return out
+
+
 def _header(p: Plan) -> dict:
     d = p.domain
     return {
         "thermochain": __version__, "workflow": str(p.path), "workflow_path": str(p.path.resolve()),
         "title": p.workflow.title, "store": str(p.store.root.resolve()),
-        "material_sources": _material_sources(p),
+        "material_sources": _material_sources(p), "material_value_sources": _value_sources(p),
         "mesh": {"file": p.workflow.mesh.file, "unit": p.workflow.mesh.unit, "nodes": len(d.points),
                  "tetrahedra": len(d.tetrahedra), "bounding_box_m": [b.tolist() for b in d.bounding_box],
                  "part_ids": publish.vtu.part_legend(d), "notices": list(d.notices)},

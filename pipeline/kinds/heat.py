@@ -162,9 +162,10 @@ def outputs(domain, field: TemperatureField):
 def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
     from ..outputs import figures as fig
 
-    return [fig.temperature_outside(folder / f"{name}_outside.png", domain, field),
-            fig.temperature_cut(folder / f"{name}_cut.png", domain, field),
-            fig.part_temperatures(folder / f"{name}_parts.png", entry["parts_degC"], context.limits_degC)]
+    inside = fig.temperature_inside(folder / f"{name}_inside.png", domain, field)
+    return [fig.temperature_outside(folder / f"{name}_outside.png", domain, field)] + ([inside] if inside else []) + [
+        fig.temperature_section(folder / f"{name}_section.png", domain, field),
+        fig.part_temperatures(folder / f"{name}_parts.png", entry["parts_degC"], context.limits_degC)]
 
 
 def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:

@@ -183,10 +183,39 @@ def outputs(domain, field: StressField):
 def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
     from ..outputs import figures as fig
 
-    out = [fig.von_mises_deformed(folder / f"{name}_von_mises.png", domain, field)]
-    if any(f["safety_factor"] is not None for f in entry["parts"].values()):
-        out.append(fig.safety_factors(folder / f"{name}_safety.png", entry["parts"], context.required_safety_factor))
+    parts, required = entry["parts"], context.required_safety_factor
+    out = []
+    if any(f["safety_factor"] is not None for f in parts.values()):
+        out.append(fig.safety_factors(folder / f"{name}_safety.png", parts, required))
+    singular = np.array(sorted(_singular_nodes(domain, entry.get("support_surfaces", []))), dtype=int)
+    for part in verdict_parts(parts, required):
+        f = parts[part]
+        quantity = "principal" if (f.get("criterion") or "").startswith("brittle") else "von_mises"
+        flags = f.get("principal_max" if quantity == "principal" else "von_mises")
+        out.append(fig.stress_part(folder / f"{name}_{part}.png", domain, field, part, singular, f.get("strength_Pa"),
+                                   quantity, flags if isinstance(flags, dict) else None))
+    board = fig.most_bonded(domain)
+    if fig.plate_like(domain, board):
+        out.append(fig.warpage(folder / f"{name}_warpage_{board}.png", domain, field, board))
+    for line, records in getattr(field, "lines", {}).items():
+        out.append(fig.line_records(folder / f"{name}_line_{line}.png", line, records))
+    out.append(fig.von_mises_deformed(folder / f"{name}_von_mises.png", domain, field))
     return out
+
+
+#: At most this many parts get a stress figure of their own.
+FIGURE_PARTS = 4
+
+
+def verdict_parts(parts: dict, required: float) -> list[str]:
+    """The parts whose stress carries the verdict: those below the required safety factor and the one
+    with the lowest (most critical first, at most FIGURE_PARTS); without safety factors, the part with
+    the highest von Mises peak."""
+    rated = sorted((f["safety_factor"], p) for p, f in parts.items() if f["safety_factor"] is not None)
+    if not rated:
+        return [max(parts, key=lambda p: parts[p]["von_mises_max_Pa"])] if parts else []
+    chosen = [p for sf, p in rated if sf < required] or [rated[0][1]]
+    return chosen[:FIGURE_PARTS]
 
 
 #: code of the notice "a part's peak lies where the elastic stress is singular" (read by the
@@ -245,6 +274,14 @@ def report(entry, context: base.OutputContext) -> list[str]:
                    "checked):</p>" + table(["bolt", "preload [N]", "after the loads [N]", "shortening [um]"], [
                        [n, f"{b['preload_N']:.5g}", f"{b['force_N']:.5g}", f"{b['shortening_m'] * 1e6:.4g}"]
                        for n, b in entry["bolts"].items()]))
+    if entry.get("probes"):
+        out.append("<p>Probes (the recovered field at each point):</p>" + table(
+            ["probe", "von Mises [MPa]", "largest principal [MPa]", "displacement [um]", "stress xx, yy, zz [MPa]"], [
+                [name, f"{v['von_mises_Pa'] / 1e6:.4g}",
+                 f"{v['principal_Pa'][0] / 1e6:.4g}" if v.get("principal_Pa") else "-",
+                 ", ".join(f"{c * 1e6:.3g}" for c in v["displacement_m"]),
+                 ", ".join(f"{c / 1e6:.4g}" for c in v["stress_Pa"][:3]) if v.get("stress_Pa") else "-"]
+                for name, v in entry["probes"].items()]))
     eq = entry["equilibrium"]
     rows = []
     for k, r in entry["reactions_N"].items():

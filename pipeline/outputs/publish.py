@@ -13,7 +13,7 @@ from .. import files, kinds
 from ..kinds.base import OutputContext
 from ..model.units import celsius
 from ..notices import Notice
-from . import report, vtu
+from . import report, verdict, vtu
 
 log = logging.getLogger(__name__)
 
@@ -47,6 +47,7 @@ def write(folder: Path, record: dict, results: dict, domains: dict, options, lim
             log.warning("figures were not drawn (%s: %s); the results are complete without them",
                         type(exc).__name__, exc)
             record.setdefault("notices", []).append(f"figures not drawn: {type(exc).__name__}: {exc}")
+    record["verdict"] = verdict.verdict(record, limits, options.required_safety_factor)
     found = warnings(record, domains, context)
     record["warnings"] = [str(n) for n in found]
     record["warning_records"] = [n.to_dict() for n in found]
