@@ -187,7 +187,7 @@ def figures(folder, name, entry, field, domain, context: base.OutputContext) -> 
     out = []
     if any(f["safety_factor"] is not None for f in parts.values()):
         out.append(fig.safety_factors(folder / f"{name}_safety.png", parts, required))
-    singular = np.array(sorted(_singular_nodes(domain, entry.get("support_surfaces", []))), dtype=int)
+    singular = _feature_vertices(domain, entry)
     for part in verdict_parts(parts, required):
         f = parts[part]
         quantity = "principal" if (f.get("criterion") or "").startswith("brittle") else "von_mises"
@@ -201,6 +201,16 @@ def figures(folder, name, entry, field, domain, context: base.OutputContext) -> 
         out.append(fig.line_records(folder / f"{name}_line_{line}.png", line, records))
     out.append(fig.von_mises_deformed(folder / f"{name}_von_mises.png", domain, field))
     return out
+
+
+def _feature_vertices(domain, entry: dict) -> np.ndarray:
+    """Vertices [ids] that lie on a singular feature of the model (stages/features.py: bimaterial free
+    edges, re-entrant edges, clamp rims, point supports), for the figures' markers and colour ranges."""
+    from ..stages import features
+
+    found = features.find(domain, {n: Support(r["kind"]) for n, r in entry.get("supports", {}).items()})
+    dist, _ = found.nearest(domain.points)
+    return np.flatnonzero(dist <= 1e-9 * float(np.linalg.norm(np.ptp(domain.points, axis=0))))
 
 
 #: At most this many parts get a stress figure of their own.

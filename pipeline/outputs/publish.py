@@ -40,6 +40,8 @@ def write(folder: Path, record: dict, results: dict, domains: dict, options, lim
         record["pvd"] = "results.pvd"
     limits = {p: float(celsius(t)) for p, t in limits_K.items()}
     context = OutputContext(limits, options.required_safety_factor, record)
+    if "notices" in record:  # a rebuild draws the figures again: an earlier failure to draw is no longer news
+        record["notices"] = [n for n in record["notices"] if not str(n).startswith("figures not drawn")]
     if options.figures:
         try:
             _figures(folder, record, results, domains, context)
