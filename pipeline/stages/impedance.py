@@ -5,7 +5,8 @@ step response of any linear conduction model is such a sum over its eigenmodes (
 Conduction of Heat in Solids, 2nd ed. (1959), Section 1.14, eigenfunction expansions), so a few
 terms fitted to the computed Z_th represent it for circuit simulators.  The fit: time constants
 start log-spaced over the computed times, resistances by non-negative least squares, then all
-2n parameters (as logarithms, so that they stay positive) by nonlinear least squares on the error
+2n parameters (as logarithms, so that they stay positive, bounded to the computed time span) by
+nonlinear least squares on the error
 relative to Z_th at the end, sampled evenly in log t.  The number of terms is the smallest that
 fits within the tolerance.
 """
@@ -41,7 +42,10 @@ def fit(times: np.ndarray, zth: np.ndarray, terms: int) -> tuple[np.ndarray, np.
     def residual(x):
         return (foster(ts, np.exp(x[:terms]), np.exp(x[terms:])) - zs) / scale
 
-    got = least_squares(residual, np.concatenate([np.log(r0), np.log(tau0)]), method="lm", xtol=1e-12, ftol=1e-12)
+    lower = np.concatenate([np.full(terms, np.log(1e-9 * scale)), np.full(terms, np.log(ts[0] / 10))])
+    upper = np.concatenate([np.full(terms, np.log(10 * scale)), np.full(terms, np.log(10 * ts[-1]))])
+    start = np.clip(np.concatenate([np.log(r0), np.log(tau0)]), lower + 1e-9, upper - 1e-9)
+    got = least_squares(residual, start, bounds=(lower, upper), method="trf", xtol=1e-12, ftol=1e-12)
     r, tau = np.exp(got.x[:terms]), np.exp(got.x[terms:])
     order = np.argsort(tau)
     r, tau = r[order], tau[order]

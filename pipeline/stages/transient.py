@@ -64,13 +64,17 @@ class Profile:
     def _local(self, t: float) -> float:
         return t % self.period if self.period else t
 
-    def at(self, t: float) -> float:
-        """The value at time t (after a jump at t: the new value)."""
+    def at(self, t: float, left: bool = False) -> float:
+        """The value at time t: after a jump at t the new value, or with ``left`` the old one (what a
+        step ending at t has seen)."""
         if self.function is not None:
             return float(self.function(t))
         tl, ts, vs = self._local(t), self.times, self.values
         if self.hold:
-            i = int(np.searchsorted(ts, tl + 1e-12 * max(1.0, abs(tl)), side="right")) - 1
+            eps = 1e-12 * max(1.0, abs(t))
+            if left and self.period and tl < eps:
+                tl = self.period  # a period end: the end of the last cycle
+            i = int(np.searchsorted(ts, tl - eps if left else tl + eps, side="right")) - 1
             return float(vs[max(i, 0)])
         return float(np.interp(tl, ts, vs))
 
@@ -113,8 +117,8 @@ class ImpedanceSpec:
 class TransientSpec:
     """What the transient stage reads besides the domain and the initial field.
 
-    heat: the boundaries, materials, probes, order and solver (a ``heat.HeatSpec``; its ``power``,
-    ``generation`` and ``flux`` must be empty: power varies here).  power: part -> Profile [W].
+    heat: the boundaries (a constant flux too), materials, probes, order and solver (a ``heat.HeatSpec``;
+    its ``power`` and ``generation`` must be empty: power varies here).  power: part -> Profile [W].
     ambient: convection surface -> Profile [K] (replaces that surface's ambient).
     initial: uniform starting temperature [K] when no initial field is given.
     method: "euler" or "bdf2".  end: final time [s].  periodic: stop at the first period end at which
@@ -150,10 +154,10 @@ def check(domain, spec: TransientSpec, initial: TemperatureField | None = None, 
     except errors.InputError as exc:
         problems += exc.records
     h = spec.heat
-    for key, group in (("power", h.power), ("generation", h.generation), ("flux", h.flux)):
+    for key, group in (("power", h.power), ("generation", h.generation)):
         if group:
             problems.append(f"{where}.{key}: the transient stage takes power per part as profiles "
-                            "(power = {part = ...}); constant generation and flux are not supported yet")
+                            "(power = {part = ...}); volumetric generation is not supported yet")
     for part, m in h.materials.items():
         if m.specific_heat is None:
             problems.append(f"{where}: material '{m.name}' of part '{part}' has no specific_heat [J/(kg*K)]; "
@@ -188,7 +192,7 @@ def check(domain, spec: TransientSpec, initial: TemperatureField | None = None, 
         z = spec.impedance
         if z.part not in domain.parts:
             problems.append(errors.unknown_name("part", z.part, domain.parts, f"{where}.impedance.part"))
-        steps = [p.constant_value for p in spec.power.values()]
+        steps = [p.constant_value for p in spec.power.values()] + [1.0 for _ in h.flux]
         if not steps or None in steps or not sum(steps) > 0 or any(p.constant_value is None for p in spec.ambient.values()):
             problems.append(f"{where}.impedance: Z_th needs a power step: constant powers (total > 0) from 0 s "
                             "and constant ambients")
@@ -316,7 +320,13 @@ class _Integration:
         self.M = capacity_matrix(domain, p.space, p.geom, spec.heat.materials, spec.heat.order)
         self.units = {part: kernels.load(p.space, p.geom, domain.parts[part], 1.0 / domain.part_volume(part), p.ref)
                       for part in spec.power}  # W -> nodal load of 1 W spread over the part
-        self.convection = dict(spec.heat.convection)
+        self.flux = np.zeros(p.space.N)  # constant surface fluxes [W at the dofs]
+        self.flux_total = 0.0
+        for name, f in spec.heat.flux.items():
+            facets = kernels.Facets(p.space, p.geom, domain.surfaces[name], kernels.degree_mass(spec.heat.order))
+            per_area = f.per_area if f.per_area is not None else f.total / facets.area.sum()
+            self.flux += facets.load(per_area)
+            self.flux_total += float(per_area * facets.area.sum())
         T = np.array(initial.temperature, dtype=float) if initial is not None else np.full(p.space.N, spec.initial)
         fixed = np.zeros(0, dtype=np.int64)
         for name, value in spec.heat.fixed_temperature.items():
@@ -350,16 +360,18 @@ class _Integration:
         self._observe(0.0, T, self._power(0.0))
 
     # --- loads at a time
-    def _power(self, t: float) -> float:
-        return float(sum(p.at(t) for p in self.spec.power.values()))
+    def _power(self, t: float, left: bool = False) -> float:
+        """Heat supplied by power and flux at t [W]."""
+        return float(sum(p.at(t, left) for p in self.spec.power.values())) + self.flux_total
 
     def _loads_at(self, t: float) -> None:
+        """Loads of a step ending at t (the values before a jump at t)."""
         p = self.problem
-        b = np.zeros(p.space.N)
+        b = self.flux.copy()
         for part, profile in self.spec.power.items():
-            b += profile.at(t) * self.units[part]
+            b += profile.at(t, left=True) * self.units[part]
         p.b = b
-        p.losses = [(name, kind, facets, replace(c, ambient=self.spec.ambient[name].at(t))
+        p.losses = [(name, kind, facets, replace(c, ambient=self.spec.ambient[name].at(t, left=True))
                      if kind == "convection" and name in self.spec.ambient else c)
                     for name, kind, facets, c in p.losses]
 
@@ -467,7 +479,7 @@ class _Integration:
             self.times.append(t)
             self.solutions = self.solutions[-2:] + [T1]
             self.record["accepted"] += 1
-            self._observe(t, T1, self._power(t))
+            self._observe(t, T1, self._power(t, left=True))
             hit_jump = any(abs(t - j) <= 1e-9 * max(1.0, t) for j in jumps)
             if hit_jump:
                 restart, self.record["restarts"] = True, self.record["restarts"] + 1
