@@ -3,6 +3,7 @@
 [INC] = F.P. Incropera, D.P. DeWitt, T.L. Bergman, A.S. Lavine, Fundamentals of Heat and Mass
 Transfer, 6th ed., Wiley 2007 (section and equation numbers from memory).
 [CJ] = H.S. Carslaw, J.C. Jaeger, Conduction of Heat in Solids, 2nd ed., Oxford 1959 (from memory).
+The closed forms are those of pipeline/verification/transient.py (one copy).
 """
 
 from __future__ import annotations
@@ -12,13 +13,13 @@ import math
 import meshes
 import numpy as np
 import pytest
-from scipy.optimize import brentq
 from scipy.special import erfc
 
 from pipeline import errors
 from pipeline.model import mesh as mesh_mod
 from pipeline.model.materials import from_record
 from pipeline.stages import heat, impedance, kernels, transient as tr
+from pipeline.verification.transient import lumped, semi_infinite, slab_zth, wall_theta
 
 
 def material(k, rho, c):
@@ -47,7 +48,7 @@ def test_lumped_capacitance(method):
     tau = rho * c * side / 6 / h
     hs = heat.HeatSpec({"body": material(k, rho, c)}, convection={s: heat.Convection(h, 300.0) for s in d.surfaces})
     f = tr.solve(d, tr.TransientSpec(hs, initial=400.0, method=method, end=2 * tau, step=tau / 1e4, tolerance=1e-3))
-    exact = 300.0 + 100.0 * np.exp(-f.times / tau)
+    exact = lumped(f.times, tau, 400.0, 300.0)
     error = np.abs(f.part_history[:, 0, 2] - exact).max()
     assert error < 0.02 + f.record["accepted"] * 1e-3
     assert f.record["accepted"] < (400 if method == "euler" else 100)  # the step grows with the solution's time scale
@@ -108,12 +109,9 @@ def test_plane_wall_after_sudden_convection():
     times = [Fo * L**2 / alpha for Fo in (0.1, 0.3, 1.0)]
     f = tr.solve(d, tr.TransientSpec(hs, initial=400.0, end=times[-1], step=times[0] / 1000, tolerance=1e-4,
                                      instants=tuple(times)))
-    zetas = [brentq(lambda z: z * math.tan(z) - Bi, n * math.pi + 1e-9, n * math.pi + math.pi / 2 - 1e-9)
-             for n in range(8)]
     x = heat.fem.space(d, 2).doflocs[0] / L
     for t in times:
-        Fo = alpha * t / L**2
-        theta = sum(4 * math.sin(z) / (2 * z + math.sin(2 * z)) * np.exp(-z * z * Fo) * np.cos(z * x) for z in zetas)
+        theta = wall_theta(x, alpha * t / L**2, Bi)
         T = f.snapshots[f"t={t:g}"][1]
         assert np.abs((T - 300.0) / 100.0 - theta).max() < 1e-3
 
@@ -132,18 +130,9 @@ def test_semi_infinite_solid_step_surface_temperature():
     assert erfc(L / (2 * math.sqrt(alpha * t_end))) < 1e-8
     x = heat.fem.space(d, 2).doflocs[0]
     for t in times:
-        exact = 400.0 - 100.0 * (1 - erfc(x / (2 * math.sqrt(alpha * t))))
+        exact = semi_infinite(x, t, alpha, 400.0, 300.0)
         assert np.abs(f.snapshots[f"t={t:g}"][1] - exact).max() < 0.2
     assert f.record["energy_residual_relative"] < 1e-10
-
-
-def slab_zth(t, L, k, area, alpha, terms=200):
-    """[CJ] sec. 3.3 (slab, constant flux at x = L, zero temperature at x = 0), from memory:
-    T(L, t) = (q L / k) [1 - sum 8 / ((2n+1)^2 pi^2) exp(-(2n+1)^2 pi^2 alpha t / (4 L^2))];
-    Z_th = T / (q A)."""
-    m = 2 * np.arange(terms) + 1
-    s = (8 / (m**2 * np.pi**2))[None, :] * np.exp(-(m**2 * np.pi**2 * alpha / (4 * L**2))[None, :] * np.asarray(t)[:, None])
-    return L / (k * area) * (1 - s.sum(axis=1))
 
 
 def test_zth_of_a_slab_on_a_heat_sink_and_its_foster_fit():

@@ -9,6 +9,8 @@ its store key.  Its result is a TransientField; an ``instant`` stage picks one k
 from __future__ import annotations
 
 import math
+
+import numpy as np
 from typing import Annotated, Literal
 
 from pydantic import Field, model_validator
@@ -147,6 +149,14 @@ def summary(plan: base.StagePlan, field: transient.TransientField) -> dict:
         peaks[part] = {"max": round(celsius(t), 4), "time_s": when,
                        "end": {k: round(celsius(float(field.part_history[-1, i, j])), 4)
                                for j, k in enumerate(("min", "max", "mean"))}}
+    period = field.record.get("period_s")
+    if period and field.times[-1] >= period:  # the last period: the periodic state when one was reached
+        last = field.times >= field.times[-1] - period * (1 + 1e-9)
+        for i, part in enumerate(field.parts):
+            n = int(np.argmax(np.where(last, field.part_history[:, i, 1], -np.inf)))
+            peaks[part]["last_period"] = {"max": round(celsius(float(field.part_history[n, i, 1])), 4),
+                                          "min": round(celsius(float(field.part_history[last, i, 0].min())), 4),
+                                          "time_s": float(field.times[n])}
     out = {"order": field.order, "parts_degC": peaks, "time_s": float(field.times[-1]),
            "probes_peak_degC": {p: round(celsius(float(field.probe_history[:, j].max())), 4)
                                 for j, p in enumerate(field.probes)},
@@ -169,8 +179,6 @@ def outputs(domain, field: transient.TransientField):
 def tables(folder, name: str, entry: dict, field: transient.TransientField) -> list[str]:
     """CSV files: the history (time, power, per part min/max/mean, probes; degC), Z_th(t) and the
     Foster network (plain numbers, a header row)."""
-    import numpy as np
-
     head = ["time_s", "power_W"] + [f"{p}_{k}_degC" for p in field.parts for k in ("min", "max", "mean")]
     head += [f"probe_{p}_degC" for p in field.probes]
     rows = np.column_stack([field.times, field.power, celsius(field.part_history.reshape(len(field.times), -1)),
@@ -189,7 +197,6 @@ def tables(folder, name: str, entry: dict, field: transient.TransientField) -> l
 
 def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
     from matplotlib.figure import Figure
-    import numpy as np
 
     out = []
     fig = Figure(figsize=(7, 3.5), dpi=110)
@@ -254,7 +261,8 @@ def report(entry, context: base.OutputContext) -> list[str]:
 
 def console(entry) -> list[str]:
     lines = [f"  {part:<16} peak {s['max']:8.2f} degC at {s['time_s']:.4g} s; end mean {s['end']['mean']:8.2f} degC"
-             for part, s in entry["parts_degC"].items()]
+             + (f"; last period {s['last_period']['min']:.2f} to {s['last_period']['max']:.2f} degC"
+                if "last_period" in s else "") for part, s in entry["parts_degC"].items()]
     st = entry["steps"]
     lines.append(f"  {st['method']}: {st['accepted']} steps, {st['rejected']} rejected, to {entry['time_s']:.4g} s "
                  f"({st['reached']}); energy residual {st['energy_residual_relative']:.1e}")

@@ -409,10 +409,11 @@ class _Integration:
         scale = None
         for iteration in range(1, self.spec.heat.max_iterations + 1):
             F = M @ (a0 * T + history) / h + p.residual(T)
-            if scale is None:
-                scale = max(float(np.linalg.norm((abs(M) @ np.abs(T))[free])) * a0 / h, 1e-30)
             norm = float(np.linalg.norm(F[free]))
-            if iteration > 1 and (p.linear or norm <= self.spec.heat.tolerance * scale):
+            if scale is None:  # the residual of the start or the sources, and the round-off floor of F
+                floor = 1e-13 * float(np.linalg.norm((abs(M) @ np.abs(T))[free])) * a0 / h
+                scale = max(self.spec.heat.tolerance * max(norm, float(np.linalg.norm(p.b[free]))), floor, 1e-300)
+            if iteration > 1 and (p.linear or norm <= scale):
                 return T, F
             A = self._matrix(a0 / h, T)
             delta, _ = A.solve(-F[free]) if isinstance(A, solvers.Prepared) else \
@@ -585,6 +586,7 @@ class _Integration:
         scale = max(float(np.abs(np.array(self.energy)[:, :3]).max()), 1e-300)
         self.record["energy_residual_relative"] = float(np.abs(np.array(self.energy)[:, 3]).max() / scale)
         self.record["stage_version"] = STAGE_VERSION
+        self.record["period_s"] = self._period
         return TransientField(
             times=times, parts=self.parts, part_history=history, probes=self.probes,
             probe_history=np.array(self.probe_rows) if self.probes else np.zeros((len(times), 0)),
