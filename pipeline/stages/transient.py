@@ -35,7 +35,7 @@ from ..fields import TemperatureField
 from ..model.units import celsius
 from . import fem, heat, impedance, kernels, solvers
 
-STAGE_VERSION = 1
+STAGE_VERSION = 2
 METHODS = ("euler", "bdf2")
 ORDER = {"euler": 1, "bdf2": 2}
 
