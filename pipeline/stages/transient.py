@@ -37,6 +37,8 @@ from . import fem, heat, impedance, kernels, solvers
 
 STAGE_VERSION = 2
 METHODS = ("euler", "bdf2")
+#: preconditioned CG iterations after which a step's matrix is factorised afresh
+REFACTOR = 20
 ORDER = {"euler": 1, "bdf2": 2}
 
 
@@ -355,8 +357,10 @@ class _Integration:
         self.snapshots: dict[str, tuple[float, np.ndarray]] = {}
         self.best: dict[str, float] = {}
         self.record = {"method": spec.method, "accepted": 0, "rejected": 0, "newton": 0, "linear_solves": 0,
+                       "factorisations": 0, "preconditioned_solves": 0,
                        "restarts": 0, "periods": 0, "periodic_change_K": None, "reached": "end"}
-        self._prepared: dict = {}
+        self._factor, self._tangent = None, None
+        self._M_free = self.M[self.free][:, self.free].tocsr() if len(self.fixed) else self.M
         self._observe(0.0, T, self._power(0.0))
 
     # --- loads at a time
@@ -415,9 +419,7 @@ class _Integration:
                 scale = max(self.spec.heat.tolerance * max(norm, float(np.linalg.norm(p.b[free]))), floor, 1e-300)
             if iteration > 1 and (p.linear or norm <= scale):
                 return T, F
-            A = self._matrix(a0 / h, T)
-            delta, _ = A.solve(-F[free]) if isinstance(A, solvers.Prepared) else \
-                solvers.solve_spd(A, -F[free], method=self.spec.heat.solver)
+            delta = self._linear_solve(self._matrix(a0 / h, T), -F[free])
             self.record["linear_solves"] += 1
             self.record["newton"] += 1
             T = T.copy()
@@ -427,19 +429,42 @@ class _Integration:
         return None, None
 
     def _matrix(self, c: float, T):
-        """(c M + dR/dT) on the free dofs; for a linear problem prepared once per step size."""
+        """(c M + dR/dT) on the free dofs (a linear problem's dR/dT is assembled once)."""
         p = self.problem
-        key = round(c, 12)
-        if p.linear and key in self._prepared:
-            return self._prepared[key]
-        A = (c * self.M + p.tangent(T)).tocsr()
-        if len(self.free) != A.shape[0]:
-            A = A[self.free][:, self.free]
-        if not p.linear:
-            return A
+        if p.linear and self._tangent is not None:
+            J = self._tangent
+        else:
+            J = p.tangent(T).tocsr()
+            if len(self.free) != J.shape[0]:
+                J = J[self.free][:, self.free]
+            if p.linear:
+                self._tangent = J
+        return (c * self._M_free + J).tocsr()
+
+    def _linear_solve(self, A, rhs: np.ndarray) -> np.ndarray:
+        """Solve A x = rhs.  A kept direct factorisation of an earlier step's matrix preconditions
+        conjugate gradients (1e-12 relative residual); when that takes more than REFACTOR iterations
+        (the step or the tangent moved too far) A is factorised afresh and kept."""
+        from scipy.sparse.linalg import LinearOperator, cg
+
+        kept = self._factor
+        if kept is not None:
+            count = [0]
+
+            def apply(r):
+                count[0] += 1
+                return kept.solve(r)[0]
+
+            x, info = cg(A, rhs, x0=kept.solve(rhs)[0], rtol=1e-12, atol=0.0, maxiter=REFACTOR,
+                         M=LinearOperator(A.shape, matvec=apply, dtype=float))
+            if info == 0:
+                self.record["preconditioned_solves"] += 1
+                return x
         prepared = solvers.Prepared(A, self.spec.heat.solver, None, 1e-12, 500)
-        self._prepared = {key: prepared}  # keep one: the step size rarely returns to an old value
-        return prepared
+        x, _ = prepared.solve(rhs)
+        self.record["factorisations"] += 1
+        self._factor = prepared if prepared.method == "direct" else None
+        return x
 
     # --- the loop
     def integrate(self) -> None:
@@ -490,7 +515,7 @@ class _Integration:
                 restart = False
                 if spec.adaptive and error is not None and error > 0:
                     grow = min(2.0, 0.9 * (spec.tolerance / error) ** (1 / ((order if bdf2 else 1) + 1)))
-                    if grow >= 1.2 or grow < 1.0:  # small increases would only spoil a kept factorisation
+                    if grow >= 1.2 or grow < 1.0:  # small changes are not worth making
                         h *= grow
             if self._period and self._at_period_end(t):
                 self.record["periods"] += 1
