@@ -189,3 +189,43 @@ def test_bad_input_is_reported_at_once():
     text = "\n".join(exc.value.problems)
     for word in ("specific_heat", "'bdy'", "rk4", "periodic", "'lid'"):
         assert word in text
+
+
+# ---------------------------------------------------------------------------------------------
+# Through the workflow: the power module pulse (shortened), instants feeding map -> stress
+
+PULSE = __import__("pathlib").Path(__file__).resolve().parent.parent / "workflows" / "power_module_pulse.toml"
+SHORT = ["stages.pulse.end=2 s", "output.figures=false", "output.report=false", "output.vtu=false"]
+
+
+def test_power_module_pulse_runs_and_a_new_instant_reruns_only_what_it_touches(tmp_path):
+    from pipeline.flow import runner
+
+    def run(sets):
+        return runner.run(PULSE, SHORT + sets, store=tmp_path / "store", out=tmp_path / "out")
+
+    first = run([])
+    st = first["stages"]
+    assert {s["status"] for s in st.values()} == {"computed"}
+    pulse = st["pulse"]
+    assert pulse["steps"]["energy_residual_relative"] < 1e-10
+    assert pulse["impedance"]["fit_error"] <= 0.01
+    assert st["hottest_gradient"]["time_s"] == pytest.approx(pulse["instants_s"]["max_difference:die_1:baseplate"])
+    assert (tmp_path / "out" / "pulse_foster.csv").read_text().startswith("R_K_per_W,tau_s\n")
+    second = run(["stages.hottest_gradient.at=max_difference:substrate"])
+    status = {n: s["status"] for n, s in second["stages"].items()}
+    assert status == {"pulse": "reused", "hottest_gradient": "computed", "thermal_strain": "computed",
+                      "stress": "computed"}
+
+
+def test_instant_not_kept_is_bad_input_naming_the_kept_ones(tmp_path):
+    from pipeline.flow import runner
+
+    with pytest.raises(errors.InputError) as exc:
+        runner.run(PULSE, SHORT + ["stages.hottest_gradient.at=max_difference:dye_1"], store=tmp_path / "s",
+                   out=tmp_path / "o")
+    text = "\n".join(exc.value.problems)
+    assert "stages.hottest_gradient.at" in text and "max_difference:die_1" in text
+    with pytest.raises(errors.InputError) as exc:
+        runner.run(PULSE, SHORT + ["stages.hottest_gradient.at=1.5"], store=tmp_path / "s", out=tmp_path / "o")
+    assert "instants" in "\n".join(exc.value.problems)
