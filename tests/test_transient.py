@@ -19,7 +19,7 @@ from pipeline import errors
 from pipeline.model import mesh as mesh_mod
 from pipeline.model.materials import from_record
 from pipeline.stages import heat, impedance, kernels, transient as tr
-from pipeline.verification.transient import lumped, semi_infinite, slab_zth, wall_theta
+from pipeline.verification.transient import lumped, semi_infinite, slab_run, wall_theta
 
 
 def material(k, rho, c):
@@ -135,27 +135,17 @@ def test_semi_infinite_solid_step_surface_temperature():
     assert f.record["energy_residual_relative"] < 1e-10
 
 
-def test_zth_of_a_slab_on_a_heat_sink_and_its_foster_fit():
+def test_zth_of_a_slab_on_a_heat_sink_and_its_foster_fit(tmp_path):
     """Z_th of a 1-D slab on an ideal sink against its series [CJ]; P2 with 20 elements, BDF2 at
     1e-4 K: 0.5 % of the steady value (mesh and the unresolved first instants).  The Foster network
     (terms chosen for 1 %) reproduces the computed Z_th within its reported error."""
-    L, k, rho, c, w = 0.005, 150.0, 2330.0, 712.0, 0.002
-    alpha, area = k / (rho * c), w * w
-    d = bar(20, L, w)
-    hs = heat.HeatSpec({"body": material(k, rho, c)}, fixed_temperature={"xmin": 300.0},
-                       flux={"xmax": heat.HeatFlux(total=1.0)}, order=2)
-    end = 2 * L**2 / alpha
-    f = tr.solve(d, tr.TransientSpec(hs, initial=300.0, end=end, step=end / 1e5, tolerance=1e-4,
-                                     impedance=tr.ImpedanceSpec("body", terms=6, tolerance=0.01)))
-    z = f.impedance
-    t, zth = np.array(z["times_s"]), np.array(z["zth_K_per_W"])
-    exact = slab_zth(t, L, k, area, alpha)
+    t, zth, exact, z = slab_run(tmp_path, 20)  # L = 5 mm silicon on an ideal sink, 1 W through the top
     assert np.abs(zth - exact).max() < 5e-3 * exact[-1]
     R = [r["R_K_per_W"] for r in z["foster"]]
     tau = [r["tau_s"] for r in z["foster"]]
     assert z["fit_error"] <= 0.01
     assert np.abs(impedance.foster(t, R, tau) - zth).max() <= z["fit_error"] * zth[-1] * (1 + 1e-9)
-    assert sum(R) == pytest.approx(L / (k * area), rel=0.02)
+    assert sum(R) == pytest.approx(0.005 / (150.0 * 0.002**2), rel=0.02)  # L / (k A)
 
 
 def test_profiles_tables_steps_and_cycles():

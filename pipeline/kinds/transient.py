@@ -195,39 +195,36 @@ def tables(folder, name: str, entry: dict, field: transient.TransientField) -> l
     return [f.name for f in files]
 
 
-def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
+def _plot(path, curves, ylabel: str, title: str = "", log: bool = False) -> None:
+    """A line chart of (x, y, style, label) curves against time [s]."""
     from matplotlib.figure import Figure
 
-    out = []
     fig = Figure(figsize=(7, 3.5), dpi=110)
     ax = fig.subplots()
-    for i, part in enumerate(field.parts):
-        ax.plot(field.times, celsius(field.part_history[:, i, 1]), label=part)
+    for x, y, style, label in curves:
+        (ax.loglog if log else ax.plot)(x, y, style, label=label)
     ax.set_xlabel("time [s]")
-    ax.set_ylabel("peak temperature [degC]")
-    ax.set_title("largest temperature per part")
+    ax.set_ylabel(ylabel)
+    ax.set_title(title)
     ax.legend(fontsize=7)
     fig.tight_layout()
-    path = folder / f"{name}_history.png"
     fig.savefig(path)
+
+
+def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
     peaks = celsius(field.part_history[:, :, 1])
-    out.append({"file": path.name, "range": (float(peaks.min()), float(peaks.max())), "unit": "degC"})
+    path = folder / f"{name}_history.png"
+    _plot(path, [(field.times, peaks[:, i], "-", part) for i, part in enumerate(field.parts)],
+          "peak temperature [degC]", "largest temperature per part")
+    out = [{"file": path.name, "range": (float(peaks.min()), float(peaks.max())), "unit": "degC"}]
     if field.impedance:
         z = field.impedance
-        t = np.asarray(z["times_s"])[1:]
-        fig = Figure(figsize=(7, 3.5), dpi=110)
-        ax = fig.subplots()
-        ax.loglog(t, np.asarray(z["zth_K_per_W"])[1:], "k-", label="computed")
-        ax.loglog(t, impedance.foster(t, [f["R_K_per_W"] for f in z["foster"]], [f["tau_s"] for f in z["foster"]]),
-                  "r--", label=f"Foster, {z['terms']} terms (error {z['fit_error']:.2%})")
-        ax.set_xlabel("time [s]")
-        ax.set_ylabel("Z_th [K/W]")
-        ax.legend(fontsize=7)
-        fig.tight_layout()
+        t, zth = np.asarray(z["times_s"])[1:], np.asarray(z["zth_K_per_W"])[1:]
+        fit = impedance.foster(t, [f["R_K_per_W"] for f in z["foster"]], [f["tau_s"] for f in z["foster"]])
         path = folder / f"{name}_zth.png"
-        fig.savefig(path)
-        out.append({"file": path.name, "range": (float(min(z["zth_K_per_W"])), float(max(z["zth_K_per_W"]))),
-                    "unit": "K/W"})
+        _plot(path, [(t, zth, "k-", "computed"), (t, fit, "r--", f"Foster, {z['terms']} terms (error "
+                                                             f"{z['fit_error']:.2%})")], "Z_th [K/W]", log=True)
+        out.append({"file": path.name, "range": (float(zth.min()), float(zth.max())), "unit": "K/W"})
     return out
 
 
