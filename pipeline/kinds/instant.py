@@ -8,8 +8,10 @@ instant reruns only the instant, map and stress stages after it.
 
 from __future__ import annotations
 
-from pydantic import Field
+from dataclasses import dataclass
 from typing import Literal
+
+from pydantic import Field
 
 from .. import errors
 from ..fields import TemperatureField
@@ -24,6 +26,18 @@ RESULT = TemperatureField
 SOURCE = transient.TransientField
 READS: tuple[str, ...] = ()
 STAGE_VERSION = 1
+
+
+@dataclass(frozen=True)
+class Pick:
+    """What an instant stage reads: the snapshot label and the transient stage's heat spec."""
+
+    label: str
+    heat: object
+
+    @property
+    def order(self) -> int:
+        return self.heat.order
 
 
 class InstantStage(Strict):
@@ -58,14 +72,12 @@ def plan(ctx: base.Context, name: str, stage: InstantStage, where: str) -> base.
     up = base.upstream(ctx, stage.source, SOURCE, where)
     chosen = label(stage, up.spec, where)
     inputs = ctx.base_inputs(NAME, STAGE_VERSION) | {"options": {"at": chosen}, "upstream": up.key}
-    plan_ = base.StagePlan(name, NAME, up.domain, (chosen, up.spec.heat), inputs, source=stage.source)
-    return plan_
+    return base.StagePlan(name, NAME, up.domain, Pick(chosen, up.spec.heat), inputs, source=stage.source)
 
 
 def compute(plan: base.StagePlan, upstream) -> TemperatureField:
-    chosen, heat_spec = plan.spec
     result, domain = upstream
-    return transient.at_instant(domain, heat_spec, result, chosen, where=plan.where)
+    return transient.at_instant(domain, plan.spec.heat, result, plan.spec.label, where=plan.where)
 
 
 def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
