@@ -19,7 +19,7 @@ from pipeline import errors
 from pipeline.model import mesh as mesh_mod
 from pipeline.model.materials import from_record
 from pipeline.stages import heat, impedance, kernels, transient as tr
-from pipeline.verification.transient import lumped, semi_infinite, slab_run, wall_theta
+from pipeline.verification.transient import SLAB, lumped, semi_infinite, slab_run, wall_theta
 
 
 def material(k, rho, c):
@@ -145,7 +145,8 @@ def test_zth_of_a_slab_on_a_heat_sink_and_its_foster_fit(tmp_path):
     tau = [r["tau_s"] for r in z["foster"]]
     assert z["fit_error"] <= 0.01
     assert np.abs(impedance.foster(t, R, tau) - zth).max() <= z["fit_error"] * zth[-1] * (1 + 1e-9)
-    assert sum(R) == pytest.approx(0.005 / (150.0 * 0.002**2), rel=0.02)  # L / (k A)
+    L, k, _, _, w = SLAB
+    assert sum(R) == pytest.approx(L / (k * w * w), rel=0.02)  # [INC] sec. 3.1: the steady L / (k A)
 
 
 def test_profiles_tables_steps_and_cycles():
