@@ -173,12 +173,13 @@ def test_bad_input_is_reported_at_once():
     d = cube(2)
     hs = heat.HeatSpec({"body": from_record("m", {"conductivity": 1.0, "youngs_modulus": 1e9, "poisson_ratio": 0.3,
                                                   "expansion": 1e-5, "density": 1.0}, "test")})
+    hs = heat.HeatSpec(hs.materials, convection={"xmin": heat.Convection(10.0, 320.0)})
     spec = tr.TransientSpec(hs, power={"bdy": tr.Profile.constant(1.0)}, method="rk4", periodic=0.1,
-                            impedance=tr.ImpedanceSpec("body"), differences=(("body", "lid"),))
+                            impedance=tr.ImpedanceSpec("body"), differences=(("body", "lid"),), initial=300.0)
     with pytest.raises(errors.InputError) as exc:
         tr.solve(d, spec)
     text = "\n".join(exc.value.problems)
-    for word in ("specific_heat", "'bdy'", "rk4", "periodic", "'lid'"):
+    for word in ("specific_heat", "'bdy'", "rk4", "periodic", "'lid'", "from equilibrium"):
         assert word in text
 
 

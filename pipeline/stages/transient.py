@@ -198,6 +198,12 @@ def check(domain, spec: TransientSpec, initial: TemperatureField | None = None, 
         if not steps or None in steps or not sum(steps) > 0 or any(p.constant_value is None for p in spec.ambient.values()):
             problems.append(f"{where}.impedance: Z_th needs a power step: constant powers (total > 0) from 0 s "
                             "and constant ambients")
+        sinks = [c.ambient for c in h.convection.values()] + [r.surroundings for r in h.radiation.values()]
+        sinks += [v for v in h.fixed_temperature.values() if not callable(v)]
+        if initial is None and any(abs(v - spec.initial) > 1e-9 * max(1.0, v) for v in sinks):
+            problems.append(f"{where}.impedance: Z_th is the response to a power step from equilibrium: the uniform "
+                            f"initial temperature ({spec.initial:g} K) must equal every ambient, surroundings and "
+                            "fixed temperature (or start from a steady heat stage)")
         if not (1 <= z.terms <= 12 and 0 < z.tolerance < 1):
             problems.append(f"{where}.impedance: terms must lie in 1..12 and tolerance in (0, 1)")
     if initial is not None and (initial.order != h.order or len(initial.temperature) != fem.unknowns(domain, h.order)):
