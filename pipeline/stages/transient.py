@@ -448,28 +448,25 @@ class _Integration:
         return (c * self._M_free + J).tocsr()
 
     def _linear_solve(self, A, rhs: np.ndarray) -> np.ndarray:
-        """Solve A x = rhs.  A kept direct factorisation of an earlier step's matrix preconditions
-        conjugate gradients (1e-12 relative residual); when that takes more than REFACTOR iterations
-        (the step or the tangent moved too far) A is factorised afresh and kept."""
+        """Solve A x = rhs.  The direct factorisation (or the AMG hierarchy's V-cycle) of an earlier
+        step's matrix preconditions conjugate gradients (1e-12 relative residual); when that takes more
+        than REFACTOR iterations (the step or the tangent moved too far) A is prepared afresh and kept."""
         from scipy.sparse.linalg import LinearOperator, cg
 
         kept = self._factor
         if kept is not None:
-            count = [0]
-
-            def apply(r):
-                count[0] += 1
-                return kept.solve(r)[0]
-
-            x, info = cg(A, rhs, x0=kept.solve(rhs)[0], rtol=1e-12, atol=0.0, maxiter=REFACTOR,
-                         M=LinearOperator(A.shape, matvec=apply, dtype=float))
+            if kept.method == "direct":
+                M = LinearOperator(A.shape, matvec=lambda r: kept.solve(r)[0], dtype=float)
+            else:
+                M = kept._ml.aspreconditioner(cycle="V")
+            x, info = cg(A, rhs, rtol=1e-12, atol=0.0, maxiter=REFACTOR, M=M)
             if info == 0:
                 self.record["preconditioned_solves"] += 1
                 return x
         prepared = solvers.Prepared(A, self.spec.heat.solver, None, 1e-12, 500)
         x, _ = prepared.solve(rhs)
         self.record["factorisations"] += 1
-        self._factor = prepared if prepared.method == "direct" else None
+        self._factor = prepared
         return x
 
     # --- the loop
