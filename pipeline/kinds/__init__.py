@@ -1,6 +1,6 @@
 """Stage kinds: one module per kind owns everything that is particular to it.
 
-A kind module (``heat``, ``map``, ``stress`` here; more from the ``thermochain.kinds`` entry-point
+A kind module (``heat``, ``transient``, ``instant``, ``map``, ``stress`` here; more from the ``thermochain.kinds`` entry-point
 group or ``register``) defines:
 
 - ``NAME`` (the word in the workflow file, the store and the summary) and ``Schema``, its workflow
@@ -13,6 +13,7 @@ group or ``register``) defines:
   ``(result, domain)`` of its source, or None);
 - ``summary(plan, result) -> dict``: the figures summary.json shows for it (units in the key names);
 - ``outputs(domain, result) -> (point_data, cell_data) | None``: the arrays of its VTU file;
+- ``tables(folder, name, entry, result) -> list[str]``: the data files (CSV) it writes, by name;
 - ``figures(folder, name, entry, result, domain, context) -> list[dict]``: its PNG figures;
 - ``notices(name, entry, domain, context) -> list[Notice]``: warnings a reader must not miss;
 - ``report(entry, context) -> list[str]``: its HTML tables; ``console(entry) -> list[str]``: its lines
@@ -28,13 +29,13 @@ import importlib
 from importlib.metadata import entry_points
 from types import ModuleType
 
-from . import base, heat, map, stress  # noqa: A004 - 'map' is the stage kind's name
+from . import base, heat, instant, map, stress, transient  # noqa: A004 - 'map' is the stage kind's name
 
-_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (heat, map, stress)}
+_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (heat, transient, instant, map, stress)}
 _loaded_plugins = False
 
 #: hooks a kind may leave out, with what the runner does then
-OPTIONAL = {"outputs": base.no_outputs, "figures": base.no_figures, "notices": base.no_notices,
+OPTIONAL = {"outputs": base.no_outputs, "tables": base.no_tables, "figures": base.no_figures, "notices": base.no_notices,
             "report": base.no_report, "console": base.no_console, "quantities": base.no_quantities}
 
 
@@ -53,7 +54,7 @@ def register(module: ModuleType) -> ModuleType:
 
 def unregister(name: str) -> None:
     """Remove a kind added by ``register`` (the shipped kinds stay)."""
-    if name in ("heat", "map", "stress"):
+    if name in ("heat", "transient", "instant", "map", "stress"):
         raise ValueError(f"the shipped stage kind {name!r} cannot be removed")
     _REGISTRY.pop(name, None)
     from ..flow import workflow

@@ -158,6 +158,10 @@ def no_outputs(domain, result):
     return None
 
 
+def no_tables(folder, name, entry, result) -> list[str]:
+    return []
+
+
 def no_figures(folder, name, entry, result, domain, context) -> list[dict]:
     return []
 

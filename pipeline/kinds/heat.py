@@ -73,19 +73,8 @@ Schema = HeatStage
 
 def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.StagePlan:
     domain = ctx.domain
-    mats, names, problems = base.materials(ctx, stage, domain, where)
-    spec = heat.HeatSpec(
-        materials=mats, power=stage.power, generation=stage.generation,
-        flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
-        convection={s: heat.Convection(c.film_coefficient, c.ambient, c.exponent, c.reference_difference)
-                    for s, c in stage.convection.items()},
-        radiation=_radiation(stage, where, problems),
-        fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
-        memory_limit=stage.memory_limit, max_iterations=stage.max_iterations,
-        contacts={n: j.heat_conductance for n, j in ctx.workflow.interfaces.items()
-                  if n in domain.contacts and j.kind != "section"},
-        tied=tuple(n for n, j in ctx.workflow.interfaces.items() if n in domain.contacts and j.kind == "section"),
-        cavities={n: heat.Cavity(dict(c.films), c.ventilation, c.inlet) for n, c in stage.cavities.items()})
+    spec, names, problems = heat_spec(ctx, stage, where)
+    mats = spec.materials
     problems += [errors.unknown_name("surface", a, domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in domain.surfaces]
     base.checked(heat.check, domain, spec, where, problems)
@@ -95,6 +84,26 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes} | base.interface_inputs(ctx, domain)
     return base.StagePlan(name, NAME, domain, spec, inputs, materials=names)
+
+
+def heat_spec(ctx: base.Context, stage: HeatStage, where: str, power: bool = True):
+    """The HeatSpec of a heat section (also the boundaries of a transient stage, ``power=False``:
+    its power is a profile): (spec, material names by part, problems found)."""
+    mats, names, problems = base.materials(ctx, stage, ctx.domain, where)
+    spec = heat.HeatSpec(
+        materials=mats, power=stage.power if power else {}, generation=stage.generation,
+        flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
+        convection={s: heat.Convection(c.film_coefficient, c.ambient, c.exponent, c.reference_difference)
+                    for s, c in stage.convection.items()},
+        radiation=_radiation(stage, where, problems),
+        fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
+        memory_limit=stage.memory_limit, max_iterations=stage.max_iterations,
+        contacts={n: j.heat_conductance for n, j in ctx.workflow.interfaces.items()
+                  if n in ctx.domain.contacts and j.kind != "section"},
+        tied=tuple(n for n, j in ctx.workflow.interfaces.items() if n in ctx.domain.contacts and j.kind == "section"),
+        cavities={n: heat.Cavity(dict(c.films), c.ventilation, c.inlet)
+                  for n, c in getattr(stage, "cavities", {}).items()})
+    return spec, names, problems
 
 
 def _radiation(stage: HeatStage, where: str, problems: list) -> dict:

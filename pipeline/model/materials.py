@@ -1,7 +1,7 @@
 """Material records, the shipped library, user libraries and per-part orientation.
 
 Values are SI: conductivity W/(m*K), moduli and strengths Pa, expansion 1/K, density kg/m^3,
-temperatures K.  Orthotropic properties are principal values in the material axes; a part's
+specific heat J/(kg*K), temperatures K.  Orthotropic properties are principal values in the material axes; a part's
 ``axes`` (rows = material x, y, z directions in model coordinates) turn them into tensors.
 """
 
@@ -24,6 +24,7 @@ REQUIRED = {
     "density": "kg/m^3",
 }
 OPTIONAL = {
+    "specific_heat": "J/(kg*K)",
     "shear_modulus": "Pa",
     "yield_strength": "Pa",
     "tensile_strength": "Pa",
@@ -54,6 +55,7 @@ class Material:
     poisson_ratio: tuple[float, ...]
     expansion: tuple[float, ...]
     density: float
+    specific_heat: float | None = None
     shear_modulus: tuple[float, ...] = ()
     yield_strength: float | None = None
     tensile_strength: float | None = None

@@ -35,6 +35,10 @@ def write(folder: Path, record: dict, results: dict, domains: dict, options, lim
             else:
                 st["vtu"] = vtu.write(folder / f"{name}.vtu", domains[name], results[name], st["kind"]).name
             written.append(st["vtu"])
+    for name, st in record["stages"].items():
+        files = kinds.hook(st["kind"], "tables")(folder, name, st, results[name])
+        if files:
+            st["tables"] = files
     if written:
         _pvd(folder / "results.pvd", written)
         record["pvd"] = "results.pvd"

@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import Case, Check, manufactured, shipped_mesh
+from . import transient as transient_cases
 from . import meshes as mk
 
 INC, TG, NAFEMS = "[INC]", "[TG] ch. 13", "[NAFEMS]"
@@ -24,6 +25,8 @@ SOURCES = {
                 "against secondary public descriptions; no copy of the publication was read)",
     "[MMS]": "P.J. Roache, Code verification by the method of manufactured solutions, J. Fluids Eng. 124(1), "
              "4-10, 2002; K. Salari, P. Knupp, SAND2000-1444, 2000",
+    "[CJ]": "H.S. Carslaw, J.C. Jaeger, Conduction of Heat in Solids, 2nd ed., Oxford University Press, 1959",
+    "[HW]": "E. Hairer, G. Wanner, Solving Ordinary Differential Equations II, 2nd ed., Springer, 1996",
     "[CIA]": "P.G. Ciarlet, The Finite Element Method for Elliptic Problems, North-Holland, 1978, ch. 3",
 }
 EXACT = "the exact field lies in the element space: only solver round-off remains"
@@ -543,4 +546,5 @@ CASES = {c.name: c for c in [
                "meshes h = 0.1 m (quick, default) and 0.07 m (fine), shipped in pipeline/verification/cases/meshes "
                "(made by cases/le11/make_mesh.py)."),
     *manufactured.CASES,
+    *transient_cases.CASES,
 ]}
