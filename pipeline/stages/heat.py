@@ -18,7 +18,7 @@ from .. import errors
 from ..fields import TemperatureField
 from ..model.materials import Material
 from ..model.units import celsius
-from . import fem, kernels, solvers
+from . import exchange as exchange_mod, fem, kernels, solvers
 
 STAGE_VERSION = 1
 
@@ -65,6 +65,8 @@ class HeatSpec:
     ``x`` (shape (3, ...), m) for a measured or manufactured distribution.  flux: surface -> HeatFlux.
     convection: surface -> Convection.  radiation: surface -> Radiation.
     fixed_temperature: surface -> K, a number or a function of x.
+    exchange: view-factor group -> ExchangeGroup (grey exchange among surfaces, pipeline/stages/
+    exchange.py); view: the view factors (a ViewFactors; while planning the view stage's ViewSpec).
     Nonlinear terms (radiation, k(T), power-law convection) are solved by Newton-Raphson with the
     consistent Jacobian; ``max_iterations`` bounds it, ``tolerance`` is the relative residual.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
@@ -85,6 +87,8 @@ class HeatSpec:
     max_iterations: int = 30
     tolerance: float = 1e-10
     memory_limit: float | None = None
+    exchange: Mapping[str, exchange_mod.ExchangeGroup] = field(default_factory=dict)
+    view: object = None
 
 
 def check(domain, spec: HeatSpec, where: str = "heat") -> None:
@@ -116,7 +120,7 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
                 if inner:
                     problems.append(f"{where}.{key}: surface '{surface}' has {inner} facets inside the body, "
                                     "not on its boundary; convection and flux need a boundary surface")
-    problems += _value_problems(spec, where)
+    problems += _value_problems(spec, where) + _exchange_problems(domain, spec, where)
     fem.check_probes(domain, spec.probes, where, problems)
     if spec.order in fem.ORDERS and not problems:
         try:
@@ -156,6 +160,21 @@ def _value_problems(spec: HeatSpec, where: str) -> list[str]:
             if not callable(value) and not np.isfinite(value):
                 bad.append(f"{where}.{key}.{name}: must be a finite number, got {value}")
     return bad
+
+
+def _exchange_problems(domain, spec: HeatSpec, where: str) -> list[str]:
+    if not spec.exchange:
+        return []
+    if spec.view is None:
+        return [f"{where}.radiation_exchange: needs the view factors of a view stage (give 'view')"]
+    out = exchange_mod.problems(domain, spec.view, spec.exchange, where)
+    if getattr(spec.view, "domain_hash", domain.source_hash) != domain.source_hash:
+        out.append(f"{where}.view: the view factors belong to another mesh; the view stage must use this one")
+    for s in {s for n in spec.exchange if n in spec.view.groups for s in spec.view.groups[n].surfaces}:
+        if s in spec.radiation:
+            out.append(f"{where}.radiation.{s}: surface '{s}' radiates in a radiation_exchange group already; "
+                       "remove one of the two")
+    return out
 
 
 def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) -> TemperatureField:
@@ -211,6 +230,10 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
     for name, kind, facets, c in problem.losses:
         loss, _ = _surface_loss(kind, c, facets.values(T))
         balance.append({"name": name, "kind": kind, "heat_in_W": -facets.integral(loss)})
+    paths = []
+    if problem.exchange:
+        rows, paths = problem.exchange.balance(T)
+        balance += rows
 
     parts = _part_statistics(domain, problem, T)
     notices = list(domain.notices) + _validity_notices(spec, parts)
@@ -222,7 +245,8 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
         probes=_probe_values(domain, spec.order, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
         domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
-                                              "assembly_seconds": assembled, "newton": newton},
+                                              "assembly_seconds": assembled, "newton": newton,
+                                              "radiative_paths": paths},
     )
 
 
@@ -231,6 +255,7 @@ def _initial_temperature(spec: HeatSpec) -> float:
     iterate is then the solution linearised about it (exact for a linear problem)."""
     values = [v for v in spec.fixed_temperature.values() if not callable(v)]
     values += [c.ambient for c in spec.convection.values()] + [r.surroundings for r in spec.radiation.values()]
+    values += [g.surroundings for g in spec.exchange.values() if g.surroundings is not None]
     return float(np.mean(values)) if values else 293.15
 
 
@@ -269,6 +294,9 @@ class _Problem:
         self.varies = any(m.conductivity_varies for m in spec.materials.values())
         self.linear = not spec.radiation and all(c.exponent == 0 for c in spec.convection.values()) and \
             not self.varies
+        self.exchange = exchange_mod.Coupling(self.space, self.geom, spec.view, spec.exchange, degree) \
+            if spec.exchange else None
+        self.linear = self.linear and not self.exchange
         self.outside = 0
         self._constant = None if self.varies else self._conduction_matrix()
 
@@ -311,6 +339,8 @@ class _Problem:
         for _, kind, facets, c in self.losses:
             loss, _ = _surface_loss(kind, c, facets.values(T))
             r = r + facets.load(loss)
+        if self.exchange:
+            r = r + self.exchange.residual(T)
         return r
 
     def tangent(self, T):
@@ -329,6 +359,8 @@ class _Problem:
                 _, slope = _surface_loss(kind, c, facets.values(T))
                 facets.mass(slope, films)
             J = J + films.matrix()
+        if self.exchange:
+            J = J + self.exchange.tangent(T)
         return J.tocsr()
 
 
@@ -343,7 +375,9 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
         A = J if len(free) == len(T) else J[free][:, free]
-        delta, record = solvers.solve_spd(A, -r[free], method=spec.solver)
+        step_solve = (lambda A, b, method: problem.exchange.step(A, b, free, method)) if problem.exchange else \
+            solvers.solve_spd
+        delta, record = step_solve(A, -r[free], method=spec.solver)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()
@@ -371,6 +405,7 @@ def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
     count, label = domain.bodies
     sinks = list(spec.convection) + list(spec.fixed_temperature) + list(spec.radiation)
+    sinks += [s for n, g in spec.exchange.items() if g.surroundings is not None for s in spec.view.groups[n].surfaces]
     reached = np.zeros(count, dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
@@ -417,6 +452,7 @@ def _probe_values(domain, order, T, probes, where) -> dict[str, float]:
 
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:
     used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux) | set(spec.radiation)
+    used |= {s for n in spec.exchange for s in spec.view.groups[n].surfaces}
     out = [s for s in sorted(domain.surfaces) if s not in used]
     boundary = domain.boundary_facets()
     named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] or [np.zeros(0, dtype=np.int64)])
