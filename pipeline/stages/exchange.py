@@ -173,28 +173,20 @@ class Coupling:
                 y += U @ (Q @ (V @ x)) - L @ x
             return y
 
-        records = []
-
-        def precondition(x):
-            y, rec = prepared.solve(x)
-            records.append(rec)
-            return y
-
         n = len(b)
         op = spla.LinearOperator((n, n), matvec=apply, dtype=float)
-        M = spla.LinearOperator((n, n), matvec=precondition, dtype=float)
+        M = spla.LinearOperator((n, n), matvec=prepared.approximate_inverse(), dtype=float)
         iterations = []
-        x, info = spla.gmres(op, b, M=M, rtol=RTOL, atol=0.0, restart=60, maxiter=20,
-                             callback=lambda r: iterations.append(r), callback_type="pr_norm")
+        x, info = spla.gmres(op, b, M=M, rtol=RTOL, atol=0.0, restart=100, maxiter=10,
+                             callback=lambda r: iterations.append(float(r)), callback_type="pr_norm")
         residual = float(np.linalg.norm(apply(x) - b) / (np.linalg.norm(b) or 1.0))
         if info != 0 and residual > 1e3 * RTOL:
             raise errors.SolverError(f"the Newton step with radiation exchange did not converge: GMRES relative "
                                      f"residual {residual:.1e} after {len(iterations)} iterations")
-        inner = records[0] if records else None
+        by = "its factorisation" if prepared.method == "direct" else "an AMG V-cycle"
         return x, solvers.SolveRecord(
-            f"gmres on the exchange tangent, preconditioned by {prepared.method}", n, len(iterations), residual,
-            time.perf_counter() - start, tuple(iterations), prepared.setup_seconds, False,
-            inner.backend if inner else prepared.backend)
+            f"gmres on the exchange tangent, preconditioned by {by}", n, len(iterations), residual,
+            time.perf_counter() - start, tuple(iterations), prepared.setup_seconds, False, prepared.backend)
 
     def balance(self, T):
         """Balance rows (heat into the body by radiation exchange, per surface) and the paths."""

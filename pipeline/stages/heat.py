@@ -409,6 +409,10 @@ def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     reached = np.zeros(count, dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
+    for n in spec.exchange:  # bodies that exchange radiation reach the sinks of each other
+        linked = np.unique(label[domain.mesh.facets[:, np.concatenate(
+            [domain.surfaces[s] for s in spec.view.groups[n].surfaces])].ravel()])
+        reached[linked] = reached[linked].any()
     problems = []
     for c in np.flatnonzero(~reached):
         parts = domain.body_parts(c)

@@ -175,6 +175,13 @@ class Prepared:
                  self.n, self.method, record.seconds, iterations, residual)
         return x, record
 
+    def approximate_inverse(self):
+        """x -> A^-1 x approximately, a fixed linear map for preconditioning an outer Krylov solve:
+        the factorisation (exact), or one AMG V-cycle."""
+        if self.method == "direct":
+            return self._direct.solve
+        return self._ml.aspreconditioner(cycle="V").matvec
+
     def _watch(self, history: list[float], bnorm: float):
         """Log every tenth iteration; stop a stalled iteration: less than 2x in the last 30, which is
         where CG sits when it has reached its round-off floor above rtol (measured at 2e6 unknowns)."""

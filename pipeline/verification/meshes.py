@@ -101,11 +101,13 @@ def planes(lo: float, hi: float, n: int) -> np.ndarray:
 def carved(path: Path, xs: Sequence[float], ys: Sequence[float], zs: Sequence[float], *,
            keep: Callable[[np.ndarray], np.ndarray],
            surfaces: Mapping[str, Callable[[np.ndarray, np.ndarray], np.ndarray]],
-           shape: Callable[[np.ndarray], np.ndarray] | None = None, part: str = "body") -> Path:
+           shape: Callable[[np.ndarray], np.ndarray] | None = None,
+           parts: Mapping[str, Callable[[np.ndarray], np.ndarray]] | None = None) -> Path:
     """A box mesh with the elements whose centroid (3, n) fails ``keep`` removed (two plates facing
     each other, an L-shaped block), written like ``box``.  surfaces: name -> predicate on the
     boundary facets' midpoints and outward normals, both (3, n) in box coordinates; the boundary
-    facets in no surface form ``rest``.  Lengths in m."""
+    facets in no surface form ``rest`` (empty groups are left out).  parts: name -> predicate on the
+    element centroids in box coordinates (default: one part ``body``).  Lengths in m."""
     from skfem import MeshTet
 
     m = MeshTet.init_tensor(*[np.asarray(g, dtype=float) for g in (xs, ys, zs)])
@@ -128,7 +130,10 @@ def carved(path: Path, xs: Sequence[float], ys: Sequence[float], zs: Sequence[fl
     groups["rest"] = bnd[~taken]
     groups = {k: v for k, v in groups.items() if len(v)}
     points = (shape(m.p) if shape else m.p).T
-    return _write(path, points, m.t.T.copy(), m.facets, groups, {part: np.arange(m.nelements)})
+    centroid = m.p[:, m.t].mean(axis=1)
+    volumes = {name: np.flatnonzero(where(centroid)) for name, where in
+               (parts or {"body": lambda c: np.ones(c.shape[1], dtype=bool)}).items()}
+    return _write(path, points, m.t.T.copy(), m.facets, groups, volumes)
 
 
 def disc(p: np.ndarray) -> np.ndarray:
@@ -141,7 +146,8 @@ def shells(path: Path, radii: Sequence[float], n: int, layers: int = 1, cylinder
     """Two concentric shells, radii r0 < r1 (inner solid) < r2 < r3 (outer solid) [m], with the gap
     between them not meshed: spheres, or cylinders of length ``cylinder_length`` along z.  A cube
     shell (n divisions a side) is mapped radially (a "cube sphere").  Surfaces: ``inner`` (r1, facing
-    the gap), ``outer`` (r2, facing the gap), ``core`` (r0), ``skin`` (r3), ``ends`` (cylinders)."""
+    the gap), ``outer`` (r2, facing the gap), ``core`` (r0), ``skin`` (r3), ``rest`` (the ends of
+    cylinders).  Parts ``inside`` (r0..r1) and ``outside`` (r2..r3)."""
     r0, r1, r2, r3 = radii
     s = [0.25, 0.5, 0.75, 1.0]  # the shells' sup-norm radii in the cube
     cube = np.unique(np.concatenate([np.linspace(-1, 1, 2 * n + 1)] + [np.linspace(a, b, layers + 1) * k for a, b in
@@ -167,4 +173,5 @@ def shells(path: Path, radii: Sequence[float], n: int, layers: int = 1, cylinder
         return q
 
     surfaces = {"inner": at(s[1]), "outer": at(s[2]), "core": at(s[0]), "skin": at(s[3])}
-    return carved(path, cube, cube, zs, keep=keep, surfaces=surfaces, shape=shape)
+    parts = {"inside": lambda c: norm(c) < s[1], "outside": lambda c: norm(c) > s[2]}
+    return carved(path, cube, cube, zs, keep=keep, surfaces=surfaces, shape=shape, parts=parts)
