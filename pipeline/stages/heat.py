@@ -409,10 +409,12 @@ def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     reached = np.zeros(count, dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
-    for n in spec.exchange:  # bodies that exchange radiation reach the sinks of each other
-        linked = np.unique(label[domain.mesh.facets[:, np.concatenate(
-            [domain.surfaces[s] for s in spec.view.groups[n].surfaces])].ravel()])
-        reached[linked] = reached[linked].any()
+    linked = [np.unique(label[domain.mesh.facets[:, np.concatenate([domain.surfaces[s] for s in
+                                                                     spec.view.groups[n].surfaces])].ravel()])
+              for n in spec.exchange]
+    for _ in linked:  # bodies that exchange radiation reach the sinks of each other (chains of groups)
+        for bodies in linked:
+            reached[bodies] = reached[bodies].any()
     problems = []
     for c in np.flatnonzero(~reached):
         parts = domain.body_parts(c)
