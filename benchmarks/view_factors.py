@@ -27,7 +27,8 @@ s = runner.run("{workflow}", sets=sets, store="{store}", out="{out}")
 v, h = s["stages"]["view"], s["stages"]["heat"]
 paths = {{(p["from"], p["to"]): p["W"] for p in h["radiative_paths_W"]}}
 print(json.dumps({{"view_s": v["seconds"], "heat_s": h["seconds"], "rays": v["rays"],
-    "groups": {{n: [g["patches"], g["facets"], g["residuals"]["raw"]["summation"]] for n, g in v["groups"].items()}},
+    "groups": {{n: [g["patches"], g["facets"], g["residuals"]["raw"]["summation"],
+                   g["residuals"]["raw"]["summation_mean"]] for n, g in v["groups"].items()}},
     "nodes": s["mesh"]["nodes"],
     "board_to_shell": paths.get(("cavity/board", "cavity/shell")),
     "fins_to_surroundings": paths.get(("fins/shell", "surroundings")),
@@ -59,16 +60,16 @@ def main() -> None:
                 r = child(CODE.format(mesh=mesh.resolve(), size=size, workflow=workflow, store=folder / "store",
                                       out=folder / "out"))
                 if "error" in r:
-                    rows.append([label, size, r["error"]] + [None] * 10)
+                    rows.append([label, None, size, r["error"]] + [None] * 12)
                     continue
                 cav, out = r["groups"]["cavity"], r["groups"]["outside"]
                 rows.append([label, r["nodes"], size, cav[0], cav[1], out[0], out[1], r["rays"], r["view_s"],
-                             cav[2], r["heat_s"], r["board_to_shell"], r["fins_to_surroundings"], r["cpu_max"],
+                             cav[2], cav[3], r["heat_s"], r["board_to_shell"], r["fins_to_surroundings"], r["cpu_max"],
                              r["peak_mib"]])
                 print(rows[-1], flush=True)
     write_section("view-factors" + ("-quick" if args.quick else ""), f"Machine: {machine()}.\n\n" + table(
         ["mesh", "nodes", "patch mm", "cavity patches", "cavity facets", "outside patches", "outside facets",
-         "rays", "view s", "cavity raw summation residual", "heat s (with exchange)", "board -> shell W",
+         "rays", "view s", "cavity raw summation residual, max", "area mean", "heat s (with exchange)", "board -> shell W",
          "fins -> surroundings W", "cpu max degC", "peak MiB"], rows))
 
 

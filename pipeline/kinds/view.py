@@ -12,6 +12,7 @@ from pydantic import Field
 
 from ..fields import ViewFactors
 from ..flow.workflow import Strict, quantity
+from ..notices import Notice
 from ..stages import view
 from . import base
 
@@ -62,20 +63,38 @@ def summary(plan: base.StagePlan, result: ViewFactors) -> dict:
             "seconds_view_factors": result.meta.get("seconds")}
 
 
+#: raw summation residual of an enclosure above which its patches are called coarse: the view factors'
+#: discretisation error is then of the order of several per cent (docs/theory.md, "Radiation exchange")
+COARSE = 0.05
+
+
+def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
+    out = []
+    for group, g in entry["groups"].items():
+        raw = g["residuals"]["raw"]["summation"]
+        if g["enclosure"] and raw > COARSE:
+            out.append(Notice("view.coarse_patches", f"the view factors of enclosure {group} missed their sum of 1 "
+                              f"by up to {raw:.1%} before correction; halve patch_size and compare", name,
+                              {"group": group, "raw_summation": raw}))
+    return out
+
+
 def report(entry, context: base.OutputContext) -> list[str]:
     from ..outputs.report import table
 
     return ["<p>View factors (patch size {:g} mm; residuals relative, before and after the correction):</p>"
             .format(entry["patch_size_m"] * 1e3) + table(
                 ["group", "patches", "facets", "area [m^2]", "enclosure", "view to surroundings",
-                 "reciprocity raw", "summation raw", "summation corrected"],
+                 "reciprocity raw", "summation raw (max, area mean)", "summation corrected"],
                 [[n, str(g["patches"]), str(g["facets"]), f"{g['area_m2']:.4g}", "yes" if g["enclosure"] else "no",
                   f"{g['surroundings_view']:.3f}", f"{g['residuals']['raw']['reciprocity']:.1e}",
-                  f"{g['residuals']['raw']['summation']:.1e}", f"{g['residuals']['corrected']['summation']:.1e}"]
+                  f"{g['residuals']['raw']['summation']:.1e}, {g['residuals']['raw'].get('summation_mean', 0):.1e}",
+                  f"{g['residuals']['corrected']['summation']:.1e}"]
                  for n, g in entry["groups"].items()])]
 
 
 def console(entry) -> list[str]:
     return [f"  group {n:<12} {g['patches']:6d} patches  {g['facets']:7d} facets  view to surroundings "
-            f"{g['surroundings_view']:.3f}  raw summation residual {g['residuals']['raw']['summation']:.1e}"
+            f"{g['surroundings_view']:.3f}  raw summation residual {g['residuals']['raw']['summation']:.1e} "
+            f"(area mean {g['residuals']['raw'].get('summation_mean', 0):.1e})"
             for n, g in entry["groups"].items()]

@@ -233,7 +233,8 @@ def _raw(x, n, geo, patch, npatch, scene, eps):
 
 def _corrected(raw, area, enclosure: bool):
     """F with reciprocity and the summation rule enforced, the view to the surroundings and the
-    residuals before and after (relative: reciprocity to the patch area, summation per row)."""
+    residuals before and after (reciprocity: max |A_i F_ij - A_j F_ji| over the largest patch area;
+    summation: the largest miss of a row sum, and its area-weighted mean)."""
     S = 0.5 * (area[:, None] * raw + (area[:, None] * raw).T)
     d = np.ones(len(area))
     for _ in range(500):  # symmetric scaling d_i (S d)_i = A_i (enclosure) or <= A_i (open)
@@ -249,8 +250,8 @@ def _corrected(raw, area, enclosure: bool):
 
     def residuals(M):
         AF = area[:, None] * M
-        return {"reciprocity": float(np.abs(AF - AF.T).max() / area.max()),
-                "summation": float(np.abs(1 - M.sum(axis=1)).max()) if enclosure else
-                float(np.maximum(M.sum(axis=1) - 1, 0).max())}
+        miss = np.abs(1 - M.sum(axis=1)) if enclosure else np.maximum(M.sum(axis=1) - 1, 0)
+        return {"reciprocity": float(np.abs(AF - AF.T).max() / area.max()), "summation": float(miss.max()),
+                "summation_mean": float(area @ miss / area.sum())}
 
     return F, out, {"raw": residuals(raw), "corrected": residuals(F)}
