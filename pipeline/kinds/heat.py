@@ -91,6 +91,8 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
         fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
         memory_limit=stage.memory_limit, max_iterations=stage.max_iterations,
         exchange=_exchange(stage, where, problems), view=_view(ctx, stage, where, problems))
+    if stage.view and spec.view is None:  # a misnamed view stage: its groups cannot be checked
+        spec = replace(spec, exchange={})
     problems += [errors.unknown_name("surface", a, domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in domain.surfaces]
     base.checked(heat.check, domain, spec, where, problems)
