@@ -89,6 +89,95 @@ report = false
     return folder / "cube.toml"
 
 
+#: Layered assembly (invented for measurement): a 0.1 m square stack of an aluminium base, a soft
+#: interlayer and a silicon die, as fractions of the height; the interlayer's modulus is the die's
+#: divided by the contrast.
+LAYERS = {"base": (0.0, 0.4), "interlayer": (0.4, 0.6), "die": (0.6, 1.0)}
+
+
+def write_layered(folder: Path, n: int, contrast: float = 1e5, poisson: float = 0.45, nz: int | None = None) -> Path:
+    """Mesh and workflow of the layered assembly with n vertices per side in x, y and nz (default n)
+    in z (a 0.1 m cube, layers by element centroid); heat P1, stress P2, the base's bottom clamped."""
+    import numpy as np
+
+    import meshes
+
+    folder.mkdir(parents=True, exist_ok=True)
+    x = np.linspace(0, SIDE, n)
+    m = meshes.tensor(x, x, np.linspace(0, SIDE, nz or n), jitter=0.15, seed=1)
+    parts = meshes.layers(m, 2, {k: (lo * SIDE, hi * SIDE) for k, (lo, hi) in LAYERS.items()})
+    meshes.write_gmsh(meshes.to_meshio(m, parts, meshes.faces(m)), folder / "layered.msh")
+    film = ", ".join(f'{f} = {{ film_coefficient = 10.0, ambient = "25 degC" }}' for f in
+                     ("xmin", "xmax", "ymin", "ymax", "zmin", "zmax"))
+    (folder / "layered.toml").write_text(f"""title = "layered assembly (invented for measurement)"
+mesh = {{ file = "layered.msh", unit = "m" }}
+[materials.soft_layer]
+title = "soft interlayer (invented: the die's modulus / {contrast:g})"
+conductivity = 3.0
+youngs_modulus = {162e9 / contrast!r}
+poisson_ratio = {poisson!r}
+expansion = 2e-4
+density = 2000.0
+[parts]
+base = {{ material = "aluminium_6061_t6" }}
+interlayer = {{ material = "soft_layer" }}
+die = {{ material = "silicon" }}
+[stages.heat]
+kind = "heat"
+power = {{ die = 50.0 }}
+convection = {{ {film} }}
+[stages.thermal_strain]
+kind = "map"
+source = "heat"
+reference = "20 degC"
+[stages.stress]
+kind = "stress"
+source = "thermal_strain"
+order = 2
+supports = {{ zmin = {{ kind = "fixed" }} }}
+[output]
+folder = "results"
+vtu = true
+figures = false
+report = false
+""")
+    return folder / "layered.toml"
+
+
+class _Captured(Exception):
+    pass
+
+
+def capture(workflow: Path, sets: list[str] | None = None) -> dict:
+    """The stress system of ``workflow`` as the stage hands it to the solver: A, b, near_null and
+    layout (the heat and map stages run first; nothing is solved for stress)."""
+    import tempfile
+
+    from pipeline.flow import runner
+    from pipeline.stages import solvers
+
+    seen = {}
+    original = solvers.solve
+
+    def grab(A, b, method="auto", rtol=1e-10, near_null=None, maxiter=500, layout=None, memory_limit=None):
+        if near_null is None:
+            return original(A, b, method, rtol, near_null, maxiter, layout, memory_limit)
+        seen.update(A=A, b=b, near_null=near_null, layout=layout)
+        raise _Captured()
+
+    solvers.solve = grab
+    work = Path(tempfile.mkdtemp(prefix="thermochain-capture-"))
+    try:
+        runner.run(str(workflow), sets or [], store=str(work / "store"), out=str(work / "out"))
+    except _Captured:
+        pass
+    finally:
+        solvers.solve = original
+    if not seen:
+        raise RuntimeError(f"{workflow}: no stress system was captured")
+    return seen
+
+
 def child(code: str, timeout: float = 3600) -> dict:
     """Run ``code`` (which prints one JSON line last) in a fresh Python; adds its peak RSS [MiB]
     and wall time [s].  A child that fails or runs out of time gives {"error": ...}."""

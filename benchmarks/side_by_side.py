@@ -1,11 +1,15 @@
-"""Benchmarks 2 and 3: the whole pipeline against a bare scikit-fem script of the same problem, and reruns.
+"""Benchmarks 2 and 3: the whole pipeline against scripts of the same problem, and reruns.
 
-The bare script is what an engineer writes by hand: generic forms with scikit-fem's default
-quadrature, ``skfem.solve`` (scipy's default sparse direct solver), the temperature interpolated
-onto the P2 elasticity basis, von Mises at the quadrature points, a VTU written with meshio.  Both
-read the same Gmsh file and the same material values; each run is its own process (peak RSS its
-own).  The pipeline writes its VTU results (no figures, no report, like the script).
-Usage: ``python benchmarks/side_by_side.py [--quick] [--repeats 3]``.
+Two scripts, both heat P1 -> temperature on the P2 elasticity basis -> stress P2, von Mises at the
+quadrature points, a VTU written with meshio.  The *expert* script is what an experienced
+scikit-fem user writes: generic forms with the exact quadrature degree (2), per-element material
+fields, pyamg smoothed aggregation with the rigid-body modes and CG to the pipeline's relative
+residual (1e-10) for both solves.  The *bare* script is a first attempt: default quadrature and
+``skfem.solve`` (scipy's sparse direct solver).  All read the same Gmsh file and the same material
+values; each run is its own process (peak RSS its own).  The pipeline writes its VTU results (no
+figures, no report, like the scripts).  Cases: the benchmark cube and the layered assembly with a
+soft interlayer (contrast 1e5, nu 0.45; benchmarks/common.py).
+Usage: ``python benchmarks/side_by_side.py [--quick] [--repeats 3] [--bare]``.
 """
 
 from __future__ import annotations
@@ -15,7 +19,7 @@ import shutil
 import tempfile
 from pathlib import Path
 
-from common import PEAK, child, machine, median, table, write_case, write_section
+from common import PEAK, child, machine, median, table, write_case, write_layered, write_section
 
 BARE = """
 import time
@@ -58,6 +62,71 @@ print(json.dumps({{"wall_s": time.perf_counter() - start, "peak_mib": peak_mib()
                   "max_T": float(T.max()), "max_vm": float(vm.max())}}))
 """
 
+EXPERT = """
+import time
+start = time.perf_counter()
+import meshio, numpy as np, pyamg
+from skfem import *
+from skfem.helpers import dot, grad, sym_grad, eye, trace, ddot
+materials, power_part, clamp_axis = {materials}, "{power_part}", {clamp_axis}
+m = meshio.read("{mesh}")
+mesh = MeshTet(m.points.T.copy(), m.cells_dict["tetra"].T.copy())
+tags = m.cell_data_dict["gmsh:physical"]["tetra"]
+names = {{v[0]: k for k, v in m.field_data.items() if v[1] == 3}}
+part = np.array([names[t] for t in tags])
+def per_element(key, nq):
+    return np.repeat(np.array([materials[p][key] for p in part])[:, None], nq, axis=1)
+# exact quadrature: degree 2 covers P1 films and sources, the P2 stiffness and P1 dT x div(P2 v)
+basis = Basis(mesh, ElementTetP1(), intorder=2)
+fb = FacetBasis(mesh, ElementTetP1(), facets=mesh.boundary_facets(), intorder=2)
+nq = basis.X.shape[1]
+@BilinearForm
+def conduction(u, v, w): return w.k * dot(grad(u), grad(v))
+@BilinearForm
+def film(u, v, w): return 10.0 * u * v
+@LinearForm
+def source(v, w): return w.q * v
+@LinearForm
+def unit(v, w): return v
+inside = (part == power_part).astype(float)
+volume = float(np.sum(basis.dx * inside[:, None]))
+A = asm(conduction, basis, k=per_element("k", nq)) + asm(film, fb)
+b = asm(source, basis, q=inside[:, None] * 50.0 / volume * np.ones((1, nq))) + 10.0 * 298.15 * asm(unit, fb)
+T = pyamg.smoothed_aggregation_solver(A).solve(b, tol=1e-10, accel="cg", maxiter=500)
+vb = Basis(mesh, ElementVector(ElementTetP2()), intorder=2)
+lam = per_element("E", nq) * per_element("nu", nq) / ((1 + per_element("nu", nq)) * (1 - 2 * per_element("nu", nq)))
+mu = per_element("E", nq) / (2 * (1 + per_element("nu", nq)))
+@BilinearForm
+def stiffness(u, v, w):
+    e, f = sym_grad(u), sym_grad(v)
+    return 2 * w.mu * ddot(e, f) + w.lam * trace(e) * trace(f)
+@LinearForm
+def thermal(v, w):
+    return (3 * w.lam + 2 * w.mu) * w.alpha * (w.t - 293.15) * trace(sym_grad(v))
+K = asm(stiffness, vb, lam=lam, mu=mu)
+f = asm(thermal, vb, lam=lam, mu=mu, alpha=per_element("alpha", nq), t=vb.with_element(ElementTetP1()).interpolate(T))
+D = vb.get_dofs(mesh.facets_satisfying(lambda x: x[clamp_axis] < 1e-9)).all()
+Kc, fc, u, I = condense(K, f, D=D)
+x = vb.doflocs[:, I] - vb.doflocs.mean(axis=1, keepdims=True)
+c = I % 3  # scikit-fem interleaves the components
+modes = np.zeros((len(I), 6))
+modes[np.arange(len(I)), c] = 1.0
+for k, (i, j) in enumerate(((1, 2), (2, 0), (0, 1))):
+    modes[c == i, 3 + k] = -x[j, c == i]
+    modes[c == j, 3 + k] = x[i, c == j]
+res = []
+u[I] = pyamg.smoothed_aggregation_solver(Kc, B=modes).solve(fc, tol=1e-10, accel="cg", maxiter=500, residuals=res)
+e = sym_grad(vb.interpolate(u))
+s = 2 * mu * e + eye(lam * trace(e), 3)
+dev = s - eye(trace(s) / 3, 3)
+vm = np.sqrt(1.5 * ddot(dev, dev))
+meshio.write("{out}/expert.vtu", meshio.Mesh(mesh.p.T, [("tetra", mesh.t.T)],
+             point_data={{"T": T, "u": u[vb.nodal_dofs].T}}, cell_data={{"von_mises": [vm.max(axis=1)]}}))
+print(json.dumps({{"wall_s": time.perf_counter() - start, "peak_mib": peak_mib(), "unknowns": int(Kc.shape[0]),
+                  "max_T": float(T.max()), "max_vm": float(vm.max()), "iterations": len(res) - 1,
+                  "residual": float(np.linalg.norm(fc - Kc @ u[I]) / np.linalg.norm(fc))}}))
+"""
+
 PIPELINE = """
 import time
 start = time.perf_counter()
@@ -68,7 +137,8 @@ print(json.dumps({{"wall_s": time.perf_counter() - start, "run_s": time.perf_cou
                   "stages": {{n: s["seconds"] for n, s in r["stages"].items()}},
                   "status": {{n: s["status"] for n, s in r["stages"].items()}},
                   "max_T": max(p["max"] for p in r["stages"]["heat"]["parts_degC"].values()) + 273.15,
-                  "unknowns": r["stages"]["stress"].get("solver", {{}}).get("unknowns")}}))
+                  "unknowns": r["stages"]["stress"].get("solver", {{}}).get("unknowns"),
+                  "solver": {{k: v for k, v in r["stages"]["stress"].get("solver", {{}}).items() if k != "history"}}}}))
 """
 
 RERUNS = """
@@ -85,12 +155,21 @@ print(json.dumps(out))
 """
 
 
-def material_values() -> dict:
+def _values(name: str, **override) -> dict:
     from pipeline.model import materials
 
-    m = materials.library()["aluminium_6061_t6"]
-    return {"k": float(m.conductivity[0]) if isinstance(m.conductivity, tuple) else float(m.conductivity),
-            "E": float(m.youngs_modulus[0]), "nu": float(m.poisson_ratio[0]), "alpha": float(m.expansion[0])}
+    m = materials.library()[name]
+    k = m.conductivity[0] if isinstance(m.conductivity, tuple) else m.conductivity
+    out = {"k": float(k), "E": float(m.youngs_modulus[0]), "nu": float(m.poisson_ratio[0]), "alpha": float(m.expansion[0])}
+    return out | override
+
+
+def case_materials(case: str, contrast: float = 1e5, poisson: float = 0.45) -> dict:
+    """Part -> k, E, nu, alpha of a benchmark case, as the workflows of benchmarks/common.py give them."""
+    if case == "cube":
+        return {"block": _values("aluminium_6061_t6")}
+    return {"base": _values("aluminium_6061_t6"), "die": _values("silicon"),
+            "interlayer": {"k": 3.0, "E": 162e9 / contrast, "nu": poisson, "alpha": 2e-4}}
 
 
 def pipeline(workflow: Path, store: Path, out: Path, sets: list[str] | None = None) -> dict:
@@ -99,81 +178,85 @@ def pipeline(workflow: Path, store: Path, out: Path, sets: list[str] | None = No
 
 
 def bare(mesh: Path, out: Path, timeout: float) -> dict:
-    return child(PEAK + BARE.format(mesh=mesh, out=out, **material_values()), timeout=timeout)
+    return child(PEAK + BARE.format(mesh=mesh, out=out, **_values("aluminium_6061_t6")), timeout=timeout)
 
 
-def compare(n: int, repeats: int, bare_runs: int, timeout: float, with_reruns: bool | None = None
+def expert(case: str, mesh: Path, out: Path, timeout: float) -> dict:
+    power, axis = ("block", 0) if case == "cube" else ("die", 2)
+    return child(PEAK + EXPERT.format(materials=repr(case_materials(case)), power_part=power, clamp_axis=axis,
+                                      mesh=mesh, out=out), timeout=timeout)
+
+
+def compare(case: str, n: int, repeats: int, bare_runs: int, timeout: float, with_reruns: bool = False
             ) -> tuple[list, list | None]:
-    """Pipeline ``repeats`` times and the bare script ``bare_runs`` times; reruns where the bare runs
-    (or as ``with_reruns`` says)."""
-    run_bare = bare_runs > 0
-    with_reruns = run_bare if with_reruns is None else with_reruns
+    """Pipeline and expert script ``repeats`` times each, alternating, and the bare script
+    ``bare_runs`` times (cube only); reruns (cube) when asked."""
     work = Path(tempfile.mkdtemp(prefix="thermochain-bench-"))
     try:
-        workflow = write_case(work, n)
-        runs_p, runs_b, reruns, swaps = [], [], [], []
+        workflow = write_case(work, n) if case == "cube" else write_layered(work, n)
+        mesh = work / ("cube.msh" if case == "cube" else "layered.msh")
+        runs_p, runs_e, runs_b, reruns, swaps = [], [], [], [], []
         for i in range(repeats):
             store = work / f"store{i}"
             runs_p.append(pipeline(workflow, store, work / f"out{i}"))
-            if not with_reruns:
-                print(n, i, runs_p[-1], flush=True)
-                continue
-            reruns.append(pipeline(workflow, store, work / f"out{i}"))
-            swaps.append(child(PEAK + RERUNS.format(workflow=workflow, store=work / f"warm{i}", out=work / f"wout{i}")))
+            runs_e.append(expert(case, mesh, work, timeout))
+            if with_reruns:
+                reruns.append(pipeline(workflow, store, work / f"out{i}"))
+                swaps.append(child(PEAK + RERUNS.format(workflow=workflow, store=work / f"warm{i}", out=work / f"wout{i}")))
             if i < bare_runs:
-                runs_b.append(bare(work / "cube.msh", work, timeout))
-            print(n, i, runs_p[-1], runs_b[-1] if runs_b else "", reruns[-1], swaps[-1], flush=True)
-            if any("error" in r for r in (runs_p[-1], reruns[-1], swaps[-1])):
+                runs_b.append(bare(mesh, work, timeout))
+            print(case, n, i, runs_p[-1], runs_e[-1], runs_b[-1] if i < bare_runs else "", flush=True)
+            if "error" in runs_p[-1]:
                 raise SystemExit("a pipeline run failed; see the line above")
     finally:
         shutil.rmtree(work, ignore_errors=True)
-    p_wall, p_mem = median([r.get("wall_s") for r in runs_p]), median([r.get("peak_mib") for r in runs_p])
-    unknowns = runs_p[0].get("unknowns")
-    if run_bare and all("error" not in r for r in runs_b):
-        b_wall, b_mem = median([r["wall_s"] for r in runs_b]), median([r["peak_mib"] for r in runs_b])
-        row = [unknowns, f"{repeats} / {len(runs_b)}", p_wall, b_wall, p_wall / b_wall, p_mem, b_mem, p_mem / b_mem,
-               f"max T {runs_p[0]['max_T']:.3f} / {runs_b[0]['max_T']:.3f} K"]
-    else:
-        note = runs_b[0]["error"] if runs_b else "bare script not run (see below)"
-        row = [unknowns, f"{repeats} / 0", p_wall, None, None, p_mem, None, None, note]
+
+    def stats(runs):
+        good = [r for r in runs if "error" not in r]
+        return (median([r["wall_s"] for r in good]), median([r["peak_mib"] for r in good])) if good else (None, None)
+
+    (p_wall, p_mem), (e_wall, e_mem), (b_wall, b_mem) = stats(runs_p), stats(runs_e), stats(runs_b)
+    ratio = lambda a, b: a / b if a is not None and b else None  # noqa: E731
+    e0 = runs_e[0]
+    check = f"max T {runs_p[0]['max_T']:.3f} / " + (f"{e0['max_T']:.3f} K" if "error" not in e0 else e0["error"])
+    if "error" not in e0:
+        check += f"; expert CG {e0['iterations']} iterations to {e0['residual']:.1e}"
+    row = [case, runs_p[0].get("unknowns"), f"{repeats} / {len([r for r in runs_e if 'error' not in r])} / {len(runs_b)}",
+           p_wall, e_wall, ratio(p_wall, e_wall), p_mem, e_mem, ratio(p_mem, e_mem), b_wall, ratio(p_wall, b_wall),
+           b_mem, ratio(p_mem, b_mem), check]
     if not swaps:
         return row, None
-    if not runs_b:
-        row = None
     full, again, swap, stress_alone = (median([r[k] for r in swaps]) for k in ("full", "unchanged", "swap", "full_stress"))
-    rerun_row = [unknowns, full, again, again / full, stress_alone, swap, swap / stress_alone,
+    rerun_row = [runs_p[0].get("unknowns"), full, again, again / full, stress_alone, swap, swap / stress_alone,
                  p_wall, median([r["wall_s"] for r in reruns]), swaps[0]["swap_status"]]
     return row, rerun_row
+
+
+HEADER = ["case", "stress unknowns", "runs (pipeline / expert / bare)", "pipeline s", "expert s", "time ratio to expert",
+          "pipeline MiB", "expert MiB", "memory ratio to expert", "bare s", "time ratio to bare", "bare MiB",
+          "memory ratio to bare", "check"]
 
 
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__)
     p.add_argument("--quick", action="store_true", help="small sizes only, to check the script")
     p.add_argument("--repeats", type=int, default=3)
-    p.add_argument("--bare-timeout", type=float, default=1800.0, help="seconds before the bare script is stopped")
+    p.add_argument("--bare", action="store_true", help="also the bare script at 1.1e5 (over 10 minutes, 8 GiB)")
+    p.add_argument("--bare-timeout", type=float, default=1800.0, help="seconds before a script is stopped")
     p.add_argument("--reruns-only", action="store_true", help="only the reruns table (benchmark 3), at 1.1e5")
     args = p.parse_args()
     if args.reruns_only:
-        _, rerun = compare(17, args.repeats, 0, args.bare_timeout, with_reruns=True)
+        _, rerun = compare("cube", 17, args.repeats, 0, args.bare_timeout, with_reruns=True)
         write_section("reruns", _rerun_table([rerun]))
         return
-    # vertices per side -> P2 stress unknowns: 17 -> 1.1e5, 35 -> 1.0e6
-    # (vertices per side, pipeline runs, bare runs): 12 -> 3.6e4, 17 -> 1.1e5, 35 -> 1.0e6 stress unknowns.
-    # The bare script's SuperLU takes over 10 minutes at 1.1e5 (one run there); at 1e6 it does not fit
-    # (see docs/performance.md), so there the pipeline runs once, without a ratio.
+    # (case, vertices per side, bare runs): 12 -> 3.6e4 and 17 -> 1.1e5 P2 stress unknowns.  The bare
+    # script's SuperLU takes over 10 minutes at 1.1e5 and does not fit at 1e6 (docs/performance.md).
     r = args.repeats
-    sizes = [(8, r, r)] if args.quick else [(12, r, r), (17, r, 1), (35, 1, 0)]
-    rows, reruns = [], []
-    for n, repeats, bare_runs in sizes:
-        row, rerun = compare(n, repeats, bare_runs, args.bare_timeout)
-        rows.append(row)
-        if rerun:
-            reruns.append(rerun)
+    sizes = ([("cube", 8, 1), ("layered", 8, 0)] if args.quick else
+             [("cube", 12, 1), ("cube", 17, 1 if args.bare else 0), ("layered", 17, 0)])
+    rows = [compare(case, n, r, bare_runs, args.bare_timeout)[0] for case, n, bare_runs in sizes]
     name = "side-by-side" + ("-quick" if args.quick else "")
-    write_section(name, f"Machine: {machine()}.\n\n" + table(
-        ["stress unknowns", "runs (pipeline / bare)", "pipeline s", "bare s", "time ratio", "pipeline MiB", "bare MiB", "memory ratio",
-         "check"], rows))
-    write_section("reruns" + ("-quick" if args.quick else ""), _rerun_table(reruns))
+    write_section(name, f"Machine: {machine()}.\n\n" + table(HEADER, rows))
 
 
 def _rerun_table(reruns: list) -> str:

@@ -160,6 +160,8 @@ def _check(args) -> int:
             reuse, reason = decisions[s.name]
             reads = f", reads {s.source}" if s.source else ""
             print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
+            for note in s.notices:
+                print(f"  note: {note}")
     return 0
 
 

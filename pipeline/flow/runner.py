@@ -237,6 +237,8 @@ def execute(path, sets=None, store=None, out=None, rerun=None, progress=None):
                     if isinstance(got, str) and reuse:
                         reason = f"{s.name} computed: {got}"
                     say(f"{s.name}: computing ({s.kind}, {len(s.domain.tetrahedra)} tetrahedra)")
+                    for note in s.notices:
+                        say(f"{s.name}: note: {note.message}")
                     log.info("%s: computing (%s)", s.name, s.kind)
                     upstream = (results[s.source], domains[s.source]) if s.source else None
                     result, status = kind.compute(s, upstream), "computed"

@@ -99,7 +99,7 @@ class MeshSection(Strict):
 
 
 class PartSection(Strict):
-    material: str = Field(description="library or inline material of the mesh part (volume group)")
+    material: str = Field(description="the part's material: a name in the material library or in [materials]")
     axes: list[list[float]] | None = Field(
         default=None, description="material x and y (and z) directions in model coordinates, for orthotropic parts (default: the model axes)")
     temperature_limit: Temperature | None = Field(default=None, description="the part's allowed peak temperature, checked in the report")

@@ -17,7 +17,9 @@ class StagePlan:
     """One stage: its inputs in SI, its key, the domain it works on and what it reads from.
 
     inputs: the plain data its store key is the hash of (summary.json shows them; the next run's
-    reasons are their differences).  prepared: what planning computed that the solve reuses."""
+    reasons are their differences).  prepared: what planning computed that the solve reuses.
+    notices: records a reader should see before the stage runs (``check`` and ``run`` show them;
+    they are not part of the key)."""
 
     name: str
     kind: str
@@ -30,6 +32,7 @@ class StagePlan:
     where: str = ""
     stage: object = None
     prepared: dict = field(default_factory=dict)
+    notices: list = field(default_factory=list)
 
 
 @dataclass

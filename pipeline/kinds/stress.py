@@ -67,7 +67,10 @@ def plan(ctx: base.Context, name: str, stage: StressStage, where: str) -> base.S
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes,
         "upstream": upstream.key if upstream else None}
-    return base.StagePlan(name, NAME, domain, spec, inputs, source=stage.source, materials=names)
+    plan = base.StagePlan(name, NAME, domain, spec, inputs, source=stage.source, materials=names)
+    hard = stress.risk(domain, spec, where)  # a stiffness contrast or a nearly incompressible part
+    plan.notices = [Notice.of(hard)] if hard else []
+    return plan
 
 
 def compute(plan: base.StagePlan, upstream) -> StressField:
@@ -85,8 +88,9 @@ def summary(plan: base.StagePlan, field: StressField) -> dict:
         "probes": dict(field.probes),
         "displacement_max_m": float(np.linalg.norm(field.displacement, axis=1).max()),
         "solver": field.solver.to_dict() | {"history": []},
-        "notices": [str(n) for n in field.notices],
+        "notices": [str(n) for n in list(plan.notices) + list(field.notices)],
         "notice_records": [Notice.of(n).to_dict() for n in field.notices],
+        "planning_notices": [n.to_dict() for n in plan.notices],
         "support_surfaces": [n for n, v in sups.items() if v.kind != "minimal"],
         "fixed_supports": [n for n, v in sups.items() if v.kind == "fixed"],
     }
@@ -118,7 +122,7 @@ SINGULAR_PEAK = "stress.singular_peak"
 
 
 def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
-    out = []
+    out = [Notice.of(n) for n in entry.get("planning_notices", [])]  # e.g. solver.hard_system
     required = context.required_safety_factor
     edges = _singular_nodes(domain, entry.get("support_surfaces", []))
     for part, f in entry["parts"].items():

@@ -375,9 +375,10 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
         A = J if len(free) == len(T) else J[free][:, free]
-        step_solve = (lambda A, b, method: problem.exchange.step(A, b, free, method)) if problem.exchange else \
-            solvers.solve_spd
-        delta, record = step_solve(A, -r[free], method=spec.solver)
+        if problem.exchange:  # its exact tangent adds a dense low-rank block (stages/exchange.py)
+            delta, record = problem.exchange.step(A, -r[free], free, spec.solver)
+        else:
+            delta, record = solvers.solve(A, -r[free], method=spec.solver, memory_limit=spec.memory_limit)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()

@@ -93,6 +93,17 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         raise errors.InputError(problems)
 
 
+def risk(domain, spec: StressSpec, where: str = "stress") -> dict | None:
+    """The planning notice of ``solvers.risk`` for this model (stiffness contrast between its parts,
+    nearly incompressible parts) with the solver strategy chosen for it, or None."""
+    used = {part: spec.materials[part] for part in domain.parts if part in spec.materials}
+    if not used:
+        return None
+    return solvers.risk({p: tuple(m.youngs_modulus) for p, m in used.items()},
+                        {p: tuple(m.poisson_ratio) for p, m in used.items()}, 3 * fem.unknowns(domain, spec.order),
+                        spec.order, spec.solver, spec.memory_limit, where)
+
+
 def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stress",
           checked: bool = False) -> StressField:
     """Displacements, stresses, reactions and safety factors; see the module docstring.
@@ -147,7 +158,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec.solver)
+    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec)
     del K
     reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
                  for name, pts in constraints.owner.items()}
@@ -168,10 +179,11 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     )
 
 
-def _solve_constrained(K, f, constraints, space, method):
-    """Solve in the local frames of the constrained points, with rigid-body modes for AMG; returns
-    u, the residual K u - f (the nodal reactions at constrained points [N]) and the solve record.
-    The residual comes from the local-frame matrix (T is orthogonal: K u - f = T (K_l u_l - f_l))."""
+def _solve_constrained(K, f, constraints, space, spec):
+    """Solve in the local frames of the constrained points, with rigid-body modes and the nodal
+    layout for AMG; returns u, the residual K u - f (the nodal reactions at constrained points [N])
+    and the solve record.  The residual comes from the local-frame matrix (T is orthogonal:
+    K u - f = T (K_l u_l - f_l))."""
     T = constraints.transform
     Kl = (T.T @ K @ T).tocsr()
     fl = T.T @ f
@@ -180,7 +192,10 @@ def _solve_constrained(K, f, constraints, space, method):
     free = np.setdiff1d(np.arange(len(f)), constraints.fixed)
     rhs = fl[free] - Kl[free][:, constraints.fixed] @ ul[constraints.fixed]
     modes = rigid_body_modes(space.doflocs)
-    ul[free], record = solvers.solve_spd(Kl[free][:, free], rhs, method=method, near_null=(T.T @ modes)[free])
+    mesh = space.mesh
+    layout = solvers.Layout(free, space.N, mesh.nvertices, mesh.edges if space.order == 2 else None, T)
+    ul[free], record = solvers.solve(Kl[free][:, free], rhs, method=spec.solver, near_null=(T.T @ modes)[free],
+                                     layout=layout, memory_limit=spec.memory_limit)
     return T @ ul, T @ (Kl @ ul - fl), record
 
 
