@@ -9,7 +9,8 @@ patch i to patch j (docs/theory.md, "Radiation exchange"):
 
 the inner integral exact per facet (the point-to-polygon form of the view factor, Siegel & Howell,
 Thermal Radiation Heat Transfer, 4th ed., sec. 4.3), the outer one the midpoint rule at the patch's
-centroid x_i (error falling with the patch size), and V(x, f) in {0, 1} the visibility of the
+centroid x_i, moved into the patch's nearest facet, with that facet's normal (error falling with the
+patch size), and V(x, f) in {0, 1} the visibility of the
 facet's centroid from x: a ray cast against every boundary facet of the mesh (Embree, through the
 ``embreex`` binding).  The raw matrix is then made to satisfy reciprocity A_i F_ij = A_j F_ji
 (symmetric mean) and the summation rule: sum_j F_ij = 1 in an enclosure (symmetric scaling
@@ -170,10 +171,9 @@ def _facet_geometry(domain, facets) -> dict[str, np.ndarray]:
 def _samples(geo, patch, area):
     """Each patch's quadrature point (its area centroid, moved into its facet nearest to it: on the
     surface, so that a concave patch does not hide it behind its own facets, and off the facet's
-    edges, where another part's wall may stand) and its mean outward normal."""
+    edges, where another part's wall may stand) and the normal there (that facet's: on a curved
+    patch the mean normal would tilt the point's hemisphere into its own surface)."""
     c = np.stack([np.bincount(patch, geo["area"] * geo["centroid"][:, d]) for d in range(3)], axis=1) / area[:, None]
-    n = np.stack([np.bincount(patch, geo["area"] * geo["normal"][:, d]) for d in range(3)], axis=1)
-    n /= np.maximum(np.linalg.norm(n, axis=1), 1e-300)[:, None]
     gap = np.linalg.norm(geo["centroid"] - c[patch], axis=1)
     order = np.lexsort((gap, patch))
     nearest = order[np.r_[True, patch[order][1:] != patch[order][:-1]]]
@@ -185,7 +185,7 @@ def _samples(geo, patch, area):
     b = np.stack([(g[2] * rhs[0] - g[1] * rhs[1]) / det, (g[0] * rhs[1] - g[1] * rhs[0]) / det])
     bary = np.clip(np.vstack([1 - b.sum(axis=0), b]), 0.0, None)  # the plane projection, clipped to the facet
     bary = 0.9 * bary / bary.sum(axis=0) + 0.1 / 3  # inside the facet, off its edges (a wall may stand there)
-    return np.einsum("kn,nkd->nd", bary, tri), n
+    return np.einsum("kn,nkd->nd", bary, tri), geo["normal"][nearest]
 
 
 def point_to_triangles(x: np.ndarray, n: np.ndarray, tri: np.ndarray) -> np.ndarray:
