@@ -10,7 +10,6 @@ the radiative paths, and writes the table into docs/performance.md (section "vie
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 import tempfile
 from pathlib import Path

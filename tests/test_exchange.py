@@ -5,7 +5,6 @@ runner when only a power changes."""
 from __future__ import annotations
 
 import shutil
-from pathlib import Path
 
 import numpy as np
 import pytest
