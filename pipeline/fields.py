@@ -221,3 +221,60 @@ class StressField:
         return (f"<StressField P{self.order}, {len(self.displacement)} nodes, |u| max {umax * 1e3:.4g} mm, "
                 f"von Mises max {self.von_mises.max() / 1e6:.4g} MPa, {len(self.parts)} parts, "
                 f"equilibrium {self.equilibrium.get('relative', 0):.1e}>")
+
+
+@dataclass(frozen=True, repr=False)
+class GroupView:
+    """View factors of one group of surfaces (pipeline/stages/view.py).
+
+    facets: the group's facet ids; patch: each facet's patch; area: patch areas [m^2]; F: patch to
+    patch view factors (n, n); surroundings: each patch's view factor to the surroundings (zero in an
+    enclosure); label: each patch's index into labels, the (surface, part) pairs; residuals:
+    reciprocity and summation residuals of the raw and of the corrected matrix."""
+
+    facets: np.ndarray
+    patch: np.ndarray
+    area: np.ndarray
+    F: np.ndarray
+    surroundings: np.ndarray
+    label: np.ndarray
+    labels: tuple[tuple[str, str], ...]
+    enclosure: bool
+    residuals: dict
+
+    @property
+    def surfaces(self) -> tuple[str, ...]:
+        return tuple(dict.fromkeys(s for s, _ in self.labels))
+
+
+@dataclass(frozen=True, repr=False)
+class ViewFactors:
+    """View factors of every group, by name; patch_size [m]; domain_hash of the mesh they belong to."""
+
+    groups: dict[str, GroupView]
+    patch_size: float
+    domain_hash: str = ""
+    meta: dict = field(default_factory=dict)
+
+    ARRAYS = ("facets", "patch", "area", "F", "surroundings", "label")
+
+    def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
+        arrays = {f"{i}_{a}": getattr(g, a) for i, g in enumerate(self.groups.values()) for a in self.ARRAYS}
+        meta = {"groups": [{"name": n, "labels": [list(l) for l in g.labels], "enclosure": g.enclosure,
+                            "residuals": g.residuals} for n, g in self.groups.items()],
+                "patch_size": self.patch_size, "domain_hash": self.domain_hash, "meta": self.meta}
+        json.dumps(meta, allow_nan=False)
+        return arrays, meta
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "ViewFactors":
+        groups = {g["name"]: GroupView(**{a: np.asarray(arrays[f"{i}_{a}"]) for a in cls.ARRAYS},
+                                       labels=tuple(tuple(l) for l in g["labels"]), enclosure=g["enclosure"],
+                                       residuals=g["residuals"])
+                  for i, g in enumerate(meta["groups"])}
+        return cls(groups=groups, patch_size=meta["patch_size"], domain_hash=meta["domain_hash"],
+                   meta=meta.get("meta", {}))
+
+    def __repr__(self) -> str:
+        inner = ", ".join(f"{n}: {len(g.area)} patches" for n, g in self.groups.items())
+        return f"<ViewFactors {inner}; patch size {self.patch_size * 1e3:g} mm>"

@@ -1,6 +1,6 @@
 """Stage kinds: one module per kind owns everything that is particular to it.
 
-A kind module (``heat``, ``transient``, ``instant``, ``map``, ``stress`` here; more from the ``thermochain.kinds`` entry-point
+A kind module (``view``, ``heat``, ``transient``, ``instant``, ``map``, ``stress`` here; more from the ``thermochain.kinds`` entry-point
 group or ``register``) defines:
 
 - ``NAME`` (the word in the workflow file, the store and the summary) and ``Schema``, its workflow
@@ -29,9 +29,9 @@ import importlib
 from importlib.metadata import entry_points
 from types import ModuleType
 
-from . import base, heat, instant, map, stress, transient  # noqa: A004 - 'map' is the stage kind's name
+from . import base, heat, instant, map, stress, transient, view  # noqa: A004 - 'map' is the stage kind's name
 
-_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (heat, transient, instant, map, stress)}
+_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (view, heat, transient, instant, map, stress)}
 _loaded_plugins = False
 
 #: hooks a kind may leave out, with what the runner does then
@@ -54,7 +54,7 @@ def register(module: ModuleType) -> ModuleType:
 
 def unregister(name: str) -> None:
     """Remove a kind added by ``register`` (the shipped kinds stay)."""
-    if name in ("heat", "transient", "instant", "map", "stress"):
+    if name in ("view", "heat", "transient", "instant", "map", "stress"):
         raise ValueError(f"the shipped stage kind {name!r} cannot be removed")
     _REGISTRY.pop(name, None)
     from ..flow import workflow

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Annotated, Literal
 
 from pydantic import Field
@@ -13,7 +14,7 @@ from ..flow.workflow import (Emissivity, FilmCoefficient, Generation, HeatFluxDe
 from ..model import finishes
 from ..model.units import celsius
 from ..notices import Notice
-from ..stages import heat
+from ..stages import exchange, heat
 from . import base
 
 NAME = "heat"
@@ -35,6 +36,13 @@ class ConvectionSection(Strict):
 class RadiationSection(Strict):
     emissivity: Emissivity = Field(description="0..1, or a finish name: " + ", ".join(f"`{k}` {v[0]:g}" for k, v in finishes.FINISHES.items()) + " (sources in pipeline/model/finishes.py)")
     surroundings: Temperature = Field(description="temperature of the surroundings")
+
+
+class ExchangeSection(Strict):
+    emissivity: dict[str, Emissivity] = Field(description="by surface or part of the group (a part's value wins): "
+                                              "0..1 or a finish name")
+    surroundings: Temperature | None = Field(default=None, description="temperature of the surroundings an open "
+                                             "group sees (none for an enclosure)")
 
 
 class FluxSection(Strict):
@@ -60,12 +68,21 @@ class HeatStage(Strict):
     flux: dict[str, FluxSection] = Field(default_factory=dict, description="heat flux into the body")
     convection: dict[str, ConvectionSection] = Field(default_factory=dict)
     radiation: dict[str, RadiationSection] = Field(default_factory=dict)
+    view: str | None = Field(default=None, description="the view stage whose view factors radiation_exchange uses")
+    radiation_exchange: dict[str, ExchangeSection] = Field(default_factory=dict, description="grey exchange "
+                                                           "among the surfaces of a view-factor group, by group")
     fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="fixed temperature; not combined with another condition on the same surface")
     cavities: dict[str, CavitySection] = Field(default_factory=dict, description="enclosed air as an unknown "
                                                "temperature: its films' net exchange balances the ventilation")
     max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most (nonlinear problems)")
     adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
                                  "planes, insulation): not warned about")
+
+
+    @property
+    def source(self) -> str | None:
+        """The stage this one reads (its view factors)."""
+        return self.view
 
 
 Schema = HeatStage
@@ -75,6 +92,8 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
     domain = ctx.domain
     spec, names, problems = heat_spec(ctx, stage, where)
     mats = spec.materials
+    if stage.view and spec.view is None:  # a misnamed view stage: its groups cannot be checked
+        spec = replace(spec, exchange={})
     problems += [errors.unknown_name("surface", a, domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in domain.surfaces]
     base.checked(heat.check, domain, spec, where, problems)
@@ -83,7 +102,34 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
         "options": stage.model_dump(exclude={"materials", "memory_limit"}),
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes} | base.interface_inputs(ctx, domain)
-    return base.StagePlan(name, NAME, domain, spec, inputs, materials=names)
+    if stage.view:
+        inputs["upstream"] = ctx.planned[stage.view].key
+    return base.StagePlan(name, NAME, domain, spec, inputs, materials=names, source=stage.view)
+
+
+def _view(ctx: base.Context, stage: HeatStage, where: str, problems: list):
+    """The view stage's spec (its groups) while planning; the solve gets its view factors."""
+    if stage.view is None:
+        return None
+    planned = ctx.planned.get(stage.view)
+    if planned is None or planned.kind != "view":
+        problems.append(errors.unknown_name("view stage", stage.view, [n for n, k in ctx.kinds.items() if k == "view"],
+                                            f"{where}.view"))
+        return None
+    return planned.spec
+
+
+def _exchange(stage: HeatStage, where: str, problems: list) -> dict:
+    out = {}
+    for group, x in stage.radiation_exchange.items():
+        eps = {}
+        for k, e in x.emissivity.items():
+            try:
+                eps[k], _ = finishes.emissivity(e, f"{where}.radiation_exchange.{group}.emissivity.{k}")
+            except errors.InputError as exc:
+                problems += exc.records
+        out[group] = exchange.ExchangeGroup(eps, x.surroundings)
+    return out
 
 
 def heat_spec(ctx: base.Context, stage: HeatStage, where: str, power: bool = True):
@@ -102,7 +148,9 @@ def heat_spec(ctx: base.Context, stage: HeatStage, where: str, power: bool = Tru
                   if n in ctx.domain.contacts and j.kind != "section"},
         tied=tuple(n for n, j in ctx.workflow.interfaces.items() if n in ctx.domain.contacts and j.kind == "section"),
         cavities={n: heat.Cavity(dict(c.films), c.ventilation, c.inlet)
-                  for n, c in getattr(stage, "cavities", {}).items()})
+                  for n, c in getattr(stage, "cavities", {}).items()},
+        exchange=_exchange(stage, where, problems) if hasattr(stage, "radiation_exchange") else {},
+        view=_view(ctx, stage, where, problems) if hasattr(stage, "view") else None)
     return spec, names, problems
 
 
@@ -119,7 +167,8 @@ def _radiation(stage: HeatStage, where: str, problems: list) -> dict:
 
 
 def compute(plan: base.StagePlan, upstream) -> TemperatureField:
-    return heat.solve(plan.domain, plan.spec, where=plan.where, checked=True)
+    spec = replace(plan.spec, view=upstream[0]) if upstream else plan.spec
+    return heat.solve(plan.domain, spec, where=plan.where, checked=upstream is None)
 
 
 def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
@@ -130,6 +179,7 @@ def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
         "parts_degC": {p: {k: round(celsius(v), 4) for k, v in s.items()} for p, s in field.parts.items()},
         "probes_degC": {p: round(celsius(v), 4) for p, v in field.probes.items()},
         "heat_balance_W": [dict(r) for r in field.balance],
+        "radiative_paths_W": [dict(r) for r in field.meta.get("radiative_paths", [])],
         "heat_in_W": field.heat_in,
         "relative_imbalance": field.imbalance,
         "loads": [dict(r) for r in field.loads],
@@ -210,6 +260,10 @@ def report(entry, context: base.OutputContext) -> list[str]:
     out.append("<p>Heat balance (positive into the body):</p>" + table(
         ["kind", "load or surface", "heat in [W]"],
         [[r["kind"], r["name"], f"{r['heat_in_W']:+.5g}"] for r in entry["heat_balance_W"]]))
+    if entry.get("radiative_paths_W"):
+        out.append("<p>Radiative paths (net, from the first to the second):</p>" + table(
+            ["group", "from", "to", "net [W]"],
+            [[r["group"], r["from"], r["to"], f"{r['W']:+.4g}"] for r in entry["radiative_paths_W"]]))
     out.append(f"<p>Relative imbalance {entry['relative_imbalance']:.1e}. Adiabatic surfaces: "
                f"{escape(', '.join(entry['adiabatic_surfaces']) or 'none')}.</p>")
     if entry.get("interfaces"):
@@ -236,6 +290,7 @@ def console(entry) -> list[str]:
               f"largest {r['max_drop_K']:.3f} K" for r in entry.get("interfaces", [])]
     lines += [f"  cavity {c['name']:<17} air {c['temperature_degC']:8.2f} degC; from the solids "
               f"{c['from_solids_W']:+.3g} W, ventilation {c['ventilation_W']:+.3g} W" for c in entry.get("cavities", [])]
+    lines += [f"  radiation {r['from']} -> {r['to']}: {r['W']:+.4f} W" for r in entry.get("radiative_paths_W", [])]
     lines.append(f"  relative imbalance {entry['relative_imbalance']:.1e}; "
                  f"adiabatic: {', '.join(entry['adiabatic_surfaces']) or 'none'}")
     return lines

@@ -22,7 +22,7 @@ from .. import errors
 from ..fields import TemperatureField
 from ..model.materials import Material
 from ..model.units import celsius
-from . import fem, kernels, solvers, ties
+from . import exchange as exchange_mod, fem, kernels, solvers, ties
 
 STAGE_VERSION = 3
 
@@ -89,6 +89,8 @@ class HeatSpec:
     contacts: contact name (``domain.contacts``) -> conductance per area h_c = 1/R'' [W/(m^2*K)]; 0 for
     an insulated interface.  tied: split interfaces that conduct perfectly (bolt pretension sections).
     cavities: name -> Cavity (enclosed air as an unknown).
+    exchange: view-factor group -> ExchangeGroup (grey exchange among surfaces, pipeline/stages/
+    exchange.py); view: the view factors (a ViewFactors; while planning the view stage's ViewSpec).
     Nonlinear terms (radiation, k(T), power-law convection) are solved by Newton-Raphson with the
     consistent Jacobian; ``max_iterations`` bounds it, ``tolerance`` is the relative residual.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
@@ -112,6 +114,8 @@ class HeatSpec:
     max_iterations: int = 30
     tolerance: float = 1e-10
     memory_limit: float | None = None
+    exchange: Mapping[str, exchange_mod.ExchangeGroup] = field(default_factory=dict)
+    view: object = None
 
 
 def check(domain, spec: HeatSpec, where: str = "heat") -> None:
@@ -150,7 +154,7 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
                 if inner:
                     problems.append(f"{where}.{key}: surface '{surface}' has {inner} facets inside the body, "
                                     "not on its boundary; convection and flux need a boundary surface")
-    problems += _value_problems(spec, where)
+    problems += _value_problems(spec, where) + _exchange_problems(domain, spec, where)
     problems += _interface_problems(domain, spec, where)
     fem.check_probes(domain, spec.probes, where, problems)
     if spec.order in fem.ORDERS and not problems:
@@ -218,6 +222,21 @@ def _value_problems(spec: HeatSpec, where: str) -> list[str]:
     return bad
 
 
+def _exchange_problems(domain, spec: HeatSpec, where: str) -> list[str]:
+    if not spec.exchange:
+        return []
+    if spec.view is None:
+        return [f"{where}.radiation_exchange: needs the view factors of a view stage (give 'view')"]
+    out = exchange_mod.problems(domain, spec.view, spec.exchange, where)
+    if getattr(spec.view, "domain_hash", domain.source_hash) != domain.source_hash:
+        out.append(f"{where}.view: the view factors belong to another mesh; the view stage must use this one")
+    for s in {s for n in spec.exchange if n in spec.view.groups for s in spec.view.groups[n].surfaces}:
+        if s in spec.radiation:
+            out.append(f"{where}.radiation.{s}: surface '{s}' radiates in a radiation_exchange group already; "
+                       "remove one of the two")
+    return out
+
+
 def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) -> TemperatureField:
     """Solve steady conduction on ``domain``; see the module docstring for the equations.
 
@@ -278,6 +297,10 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
                     for s, w in cavity["films_W"].items()]
     interfaces = [term.record(name, domain.contacts[name], T) for name, term in problem.contacts.items()]
     T = T[: space.N]
+    paths = []
+    if problem.exchange:
+        rows, paths = problem.exchange.balance(T)
+        balance += rows
 
     parts = _part_statistics(domain, problem, T)
     notices = list(domain.notices) + _validity_notices(spec, parts)
@@ -290,7 +313,7 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
         interfaces=tuple(interfaces), cavities=tuple(cavities), domain_hash=domain.source_hash,
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
-              "newton": newton},
+              "newton": newton, "radiative_paths": paths},
     )
 
 
@@ -308,6 +331,7 @@ def _initial_temperature(spec: HeatSpec) -> float:
     iterate is then the solution linearised about it (exact for a linear problem)."""
     values = [v for v in spec.fixed_temperature.values() if not callable(v)]
     values += [c.ambient for c in spec.convection.values()] + [r.surroundings for r in spec.radiation.values()]
+    values += [g.surroundings for g in spec.exchange.values() if g.surroundings is not None]
     return float(np.mean(values)) if values else 293.15
 
 
@@ -347,6 +371,8 @@ class _Problem:
         tie = ties.continuity(domain, self.space, spec.tied)
         pad = sp.identity(len(spec.cavities), format="csr")
         self.tie = ties.Continuity(sp.block_diag([tie.P, pad], format="csr"), tie.tied)
+        #: the field's dofs from the unknowns (tied dofs recomputed, the cavities' air left out)
+        self.lift = (sp.eye(self.space.N, self.n, format="csr") @ self.tie.P).tocsr()
         self.losses = [(name, "convection", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), c)
                        for name, c in spec.convection.items()]
         self.losses += [(name, "radiation", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), r)
@@ -355,6 +381,9 @@ class _Problem:
         self._fixed = self._fixed_terms()
         self.linear = not spec.radiation and all(c.exponent == 0 for c in spec.convection.values()) and \
             not self.varies
+        self.exchange = exchange_mod.Coupling(self.space, self.geom, spec.view, spec.exchange, degree) \
+            if spec.exchange else None
+        self.linear = self.linear and not self.exchange
         self.outside = 0
         self._constant = None if self.varies else self._conduction_matrix()
 
@@ -437,6 +466,8 @@ class _Problem:
         for _, kind, facets, c in self.losses:
             loss, _ = _surface_loss(kind, c, facets.values(T))
             r[: self.space.N] += facets.load(loss)
+        if self.exchange:
+            r[: self.space.N] += self.exchange.residual(T[: self.space.N])
         return self.tie.load(r)
 
     def tangent(self, T):
@@ -455,6 +486,8 @@ class _Problem:
                 _, slope = _surface_loss(kind, c, facets.values(T))
                 facets.mass(slope, films)
             J = J + self._pad(films.matrix())
+        if self.exchange:
+            J = J + self._pad(self.exchange.tangent(T[: self.space.N]))
         return self.tie.reduce(J)
 
 
@@ -469,7 +502,10 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
         A = J if len(free) == len(T) else J[free][:, free]
-        delta, record = solvers.solve(A, -r[free], method=spec.solver, memory_limit=spec.memory_limit)
+        if problem.exchange:  # its exact tangent adds a dense low-rank block (stages/exchange.py)
+            delta, record = problem.exchange.step(A, -r[free], free, spec.solver, problem.lift)
+        else:
+            delta, record = solvers.solve(A, -r[free], method=spec.solver, memory_limit=spec.memory_limit)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()
@@ -502,6 +538,7 @@ def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     count, label = domain.bodies
     sinks = list(spec.convection) + list(spec.fixed_temperature) + [
         s for s, r in spec.radiation.items() if r.emissivity > 0]  # emissivity 0 removes no heat
+    sinks += [s for n, g in spec.exchange.items() if g.surroundings is not None for s in spec.view.groups[n].surfaces]
     reached = np.zeros(count + len(spec.cavities), dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
@@ -509,6 +546,10 @@ def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     for i, c in enumerate(spec.cavities.values()):
         reached[count + i] = c.ventilation > 0
         links += [(count + i, int(b)) for s in c.films for b in np.unique(label[domain.mesh.facets[:, domain.surfaces[s]]])]
+    for name in spec.exchange:  # bodies that exchange radiation with each other form one group too
+        bodies = np.unique(label[domain.mesh.facets[:, np.concatenate([domain.surfaces[s] for s in
+                                                                       spec.view.groups[name].surfaces])].ravel()])
+        links += [(int(bodies[0]), int(b)) for b in bodies]
     r, c = np.array(links).T
     n = count + len(spec.cavities) + 1
     _, group = connected_components(coo_matrix((np.ones(len(r)), (r, c)), shape=(n, n)), directed=False)
@@ -558,6 +599,7 @@ def _probe_values(domain, order, T, probes, where) -> dict[str, float]:
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:
     used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux) | set(spec.radiation)
     used |= {s for c in spec.cavities.values() for s in c.films}
+    used |= {s for n in spec.exchange for s in spec.view.groups[n].surfaces}
     out = [s for s in sorted(domain.surfaces) if s not in used]
     boundary = domain.boundary_facets()
     joined = [f for c in domain.contacts.values() for f in c.facets] + [f for t in domain.ties.values() for f in t.facets]

@@ -27,6 +27,7 @@ from ..stages.solvers import SolveRecord
 def nonlinear_terms(spec: heat.HeatSpec) -> list[str]:
     """What makes a heat problem nonlinear (empty when it is linear)."""
     out = [f"radiation on {s}" for s in spec.radiation]
+    out += [f"radiation exchange in group {g}" for g in spec.exchange]
     out += [f"convection exponent {c.exponent:g} on {s}" for s, c in spec.convection.items() if c.exponent != 0]
     out += [f"temperature-dependent conductivity of part {p} ({m.name})"
             for p, m in spec.materials.items() if m.conductivity_varies]

@@ -9,6 +9,8 @@ geometry is the mesh written here.  The reasoning and sources are those of the t
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
 from . import Case, Check, manufactured, shipped_mesh
@@ -38,9 +40,9 @@ SIGMA = 5.670374419e-8  # Stefan-Boltzmann constant, W/(m^2 K^4) (CODATA 2018)
 SAME = {"quick": None, "default": None, "fine": None}  # exact cases: one mesh at every level
 
 
-def balance(field, name: str) -> float:
-    """Heat into the body through surface ``name`` [W]."""
-    return sum(r["heat_in_W"] for r in field.balance if r["name"] == name)
+def balance(field, name: str, kind: str | None = None) -> float:
+    """Heat into the body through surface ``name`` [W] (by boundary ``kind`` only, if given)."""
+    return sum(r["heat_in_W"] for r in field.balance if r["name"] == name and kind in (None, r["kind"]))
 
 
 def heat_stage(run):
@@ -485,12 +487,200 @@ def le11_checks(run, mesh_file):
                   "point values converge at first order", float(s.nodal_stress("body", node)[2]))]
 
 
+
+# ---------------------------------------------------------------------------------------------
+# Radiation exchange: view factors and grey exchange (pipeline/stages/view.py, exchange.py)
+
+VIEW_SRC = f"{INC}, Table 13.2 (from memory)"
+EXCHANGE_SRC = f"{INC}, Table 13.3, eq. 13.22 (from memory)"
+#: the outer integral of a patch's view factor is the midpoint rule at its centroid: error O((h/L)^2)
+#: for patch size h at distance L; MIDPOINT is its constant, about 2 x the largest measured (0.02 to
+#: 0.16 on the three view-factor cases at h/L = 1/2, 1/4, 1/8)
+MIDPOINT = 0.3
+MIDPOINT_WHY = "midpoint rule over each patch: error O((h/L)^2), here {:.2g} x (h/L)^2 with h/L = {:.3g}"
+
+
+def disc_view(ri: float, rj: float, L: float) -> float:
+    """Coaxial parallel discs of radii ri (from) and rj (to) a distance L apart."""
+    Ri, Rj = ri / L, rj / L
+    S = 1 + (1 + Rj**2) / Ri**2
+    return 0.5 * (S - np.sqrt(S**2 - 4 * (rj / ri) ** 2))
+
+
+def parallel_view(X: float, Y: float) -> float:
+    """Aligned parallel rectangles, sides X and Y over their distance."""
+    a, b = np.sqrt(1 + X**2), np.sqrt(1 + Y**2)
+    return 2 / (np.pi * X * Y) * (np.log(a * b / np.sqrt(1 + X**2 + Y**2)) + X * b * np.arctan(X / b)
+                                  + Y * a * np.arctan(Y / a) - X * np.arctan(X) - Y * np.arctan(Y))
+
+
+def perpendicular_view(H: float, W: float) -> float:
+    """Perpendicular rectangles with a common edge of length x: from the one of width W x to the one
+    of height H x."""
+    h2, w2 = H**2, W**2
+    log = (np.log((1 + w2) * (1 + h2) / (1 + w2 + h2)) + w2 * np.log(w2 * (1 + w2 + h2) / ((1 + w2) * (w2 + h2)))
+           + h2 * np.log(h2 * (1 + h2 + w2) / ((1 + h2) * (h2 + w2))))
+    return (W * np.arctan(1 / W) + H * np.arctan(1 / H) - np.sqrt(h2 + w2) * np.arctan(1 / np.sqrt(h2 + w2))
+            + log / 4) / (np.pi * W)
+
+
+def concentric(t1: float, t2: float, e1: float, e2: float, a1: float, a2: float) -> float:
+    """Net exchange [W] from surface 1 inside surface 2: long concentric cylinders or concentric spheres."""
+    return SIGMA * a1 * (t1**4 - t2**4) / (1 / e1 + a1 / a2 * (1 / e2 - 1))
+
+
+def view_between(run, a: str, b: str) -> float:
+    """Area-weighted view factor from surface a to surface b of the view stage's only group."""
+    (g,) = run.result("view").groups.values()
+    surface = np.array([g.labels[k][0] for k in g.label])
+    fa, fb = surface == a, surface == b
+    return float(g.area[fa] @ g.F[np.ix_(fa, fb)].sum(axis=1) / g.area[fa].sum())
+
+
+def _patch_size(work, workflow: str, size: float) -> None:
+    """Set the copied workflow's patch size for this level (tests write the meshes without one)."""
+    path = work / workflow
+    if path.is_file():
+        path.write_text(re.sub(r'patch_size = "[^"]*"', f'patch_size = "{size!r} m"', path.read_text()))
+
+
+PLATE_T, DISC = 0.1, (0.5, 1.0, 1.0)  # plate thickness [m]; discs ri, rj, L [m]
+
+
+def discs_prepare(work, h):
+    ri, rj, L = DISC
+    g = mk.planes(-1, 1, 16)
+    mk.carved(work / "exchange_discs.msh", g, g, [-PLATE_T, 0, L, L + PLATE_T], keep=lambda c: (c[2] < 0) | (c[2] > L),
+              surfaces={"a": lambda m, n: (np.abs(m[2]) < 1e-9) & (n[2] > 0.5),
+                        "b": lambda m, n: (np.abs(m[2] - L) < 1e-9) & (n[2] < -0.5)},
+              shape=lambda p: np.vstack([mk.disc(p)[:2] * np.where(p[2] < L / 2, ri, rj), p[2]]))
+    _patch_size(work, "exchange_discs.toml", h * L)
+
+
+def discs_checks(run, h):
+    ri, rj, L = DISC
+    return [Check(f"F from the disc r = {ri:g} to the disc r = {rj:g}, {L:g} apart", "-", disc_view(ri, rj, L),
+                  VIEW_SRC, MIDPOINT * h**2, MIDPOINT_WHY.format(MIDPOINT, h) + "; 16-sided discs",
+                  view_between(run, "a", "b"))]
+
+
+def rectangles_prepare(work, h):
+    g = mk.planes(0, 1, 16)
+    mk.carved(work / "exchange_rectangles.msh", g, g, [-PLATE_T, 0, 1, 1 + PLATE_T],
+              keep=lambda c: (c[2] < 0) | (c[2] > 1),
+              surfaces={"a": lambda m, n: (np.abs(m[2]) < 1e-9) & (n[2] > 0.5),
+                        "b": lambda m, n: (np.abs(m[2] - 1) < 1e-9) & (n[2] < -0.5)})
+    _patch_size(work, "exchange_rectangles.toml", h)
+
+
+def rectangles_checks(run, h):
+    return [Check("F between aligned 1 m squares 1 m apart", "-", parallel_view(1.0, 1.0), VIEW_SRC, MIDPOINT * h**2,
+                  MIDPOINT_WHY.format(MIDPOINT, h), view_between(run, "a", "b"))]
+
+
+def perpendicular_prepare(work, h):
+    g = np.unique(np.r_[0, mk.planes(PLATE_T, 1 + PLATE_T, 16)])
+    mk.carved(work / "exchange_perpendicular.msh", g, mk.planes(0, 1, 16), g,
+              keep=lambda c: (c[0] < PLATE_T) | (c[2] < PLATE_T),
+              surfaces={"a": lambda m, n: (np.abs(m[2] - PLATE_T) < 1e-9) & (n[2] > 0.5) & (m[0] > PLATE_T),
+                        "b": lambda m, n: (np.abs(m[0] - PLATE_T) < 1e-9) & (n[0] > 0.5) & (m[2] > PLATE_T)})
+    _patch_size(work, "exchange_perpendicular.toml", h)
+
+
+def perpendicular_checks(run, h):
+    return [Check("F between 1 m squares at right angles with a common edge", "-", perpendicular_view(1.0, 1.0),
+                  VIEW_SRC, MIDPOINT * h**2, MIDPOINT_WHY.format(MIDPOINT, h) + " (the common edge's log singularity "
+                  "is in the inner integral, which is exact)", view_between(run, "a", "b"))]
+
+
+SPHERES = (0.4, 0.5, 1.0, 1.1)  # radii [m]: inner shell r0..r1, outer shell r2..r3
+
+
+def spheres_prepare(name):
+    def prepare(work, n):
+        mk.shells(work / f"{name}.msh", SPHERES, n)
+        _patch_size(work, f"{name}.toml", 0.8 / n)
+    return prepare
+
+
+def _faceting(run) -> float:
+    """Relative area deficit of the faceted inner sphere (its straight-sided facets lie inside it)."""
+    d = run.stage("heat").domain
+    return 1 - float(d.facet_areas(d.surfaces["inner"]).sum()) / (4 * np.pi * SPHERES[1] ** 2)
+
+
+def spheres_checks(run, n):
+    h, f = heat_stage(run), run.result("heat")
+    g = h.radiation_exchange["gap"]
+    t1, t2 = h.fixed_temperature["inner"], h.fixed_temperature["outer"]
+    a1, a2 = 4 * np.pi * SPHERES[1] ** 2, 4 * np.pi * SPHERES[2] ** 2
+    deficit = _faceting(run)
+    return [Check("net exchange from the inner sphere", "W", concentric(t1, t2, g.emissivity["inner"],
+                  g.emissivity["outer"], a1, a2), EXCHANGE_SRC, 2 * deficit,
+                  f"straight-sided facets: the faceted spheres' areas fall short by {deficit:.2%} (O(h^2)); the "
+                  "view factors' midpoint error is of the same order", balance(f, "inner", "fixed_temperature"))]
+
+
+def enclosure_checks(run, n):
+    h, f = heat_stage(run), run.result("heat")
+    g = h.radiation_exchange["gap"]
+    power = h.power["inside"]
+    exchanged = [r["heat_in_W"] for r in f.balance if r["kind"] == "radiation_exchange"]
+    t1, t2 = f.parts["inside"]["mean"], f.parts["outside"]["mean"]
+    a1, a2 = 4 * np.pi * SPHERES[1] ** 2, 4 * np.pi * SPHERES[2] ** 2
+    deficit = _faceting(run)
+    return [
+        Check("net exchange of the enclosure (sum over its surfaces)", "W", 0.0, "energy conservation", ROUND_OFF,
+              "the corrected view factors satisfy reciprocity and summation to round-off", sum(exchanged),
+              scale=power, scale_text=f"the {power:g} W"),
+        Check("heat balance (power in minus convection out)", "W", 0.0, "energy conservation", ROUND_OFF,
+              "Newton stops at a residual of 1e-10 of |J| |T| (heat.py), here up to about 1e-8 of the power: the "
+              "shells' conductivity (5000 W/(m K)) makes |J| large", sum(r["heat_in_W"] for r in f.balance),
+              scale=power, scale_text=f"the {power:g} W"),
+        Check("exchange at the shells' computed temperatures", "W", concentric(t1, t2, g.emissivity["inner"],
+              g.emissivity["outer"], a1, a2), EXCHANGE_SRC, 2 * deficit,
+              f"faceted spheres, area deficit {deficit:.2%} (O(h^2)); the shells are uniform to 1e-4 K", power),
+    ]
+
+
+PLATES_GAP = 0.1  # m between the 1 m squares
+
+
+def plates_prepare(work, h):
+    g = mk.planes(0, 1, 32)
+    L = PLATES_GAP
+    mk.carved(work / "exchange_plates.msh", g, g, [-PLATE_T, 0, L, L + PLATE_T],
+              keep=lambda c: (c[2] < 0) | (c[2] > L),
+              surfaces={"a": lambda m, n: (np.abs(m[2]) < 1e-9) & (n[2] > 0.5),
+                        "b": lambda m, n: (np.abs(m[2] - L) < 1e-9) & (n[2] < -0.5)})
+    _patch_size(work, "exchange_plates.toml", h * L)
+
+
+def plates_checks(run, h):
+    st, f = heat_stage(run), run.result("heat")
+    g = st.radiation_exchange["pair"]
+    t1, t2, e1, e2 = st.fixed_temperature["a"], st.fixed_temperature["b"], g.emissivity["a"], g.emissivity["b"]
+    F = parallel_view(1 / PLATES_GAP, 1 / PLATES_GAP)
+    # network of two grey plates and black surroundings at T2 (Incropera sec. 13.3): radiosities J1, J2
+    E1, E2 = SIGMA * t1**4, SIGMA * t2**4
+    # J_i = e_i E_i + (1 - e_i) G_i, G_1 = F J2 + (1 - F) E2, G_2 = F J1 + (1 - F) E2
+    A = np.array([[1, -(1 - e1) * F], [-(1 - e2) * F, 1]])
+    J1, J2 = np.linalg.solve(A, [e1 * E1 + (1 - e1) * (1 - F) * E2, e2 * E2 + (1 - e2) * (1 - F) * E2])
+    network = J1 - (F * J2 + (1 - F) * E2)  # W/m^2 leaving plate 1 (area 1 m^2)
+    return [Check("net exchange from the hot plate", "W", network, f"{INC}, sec. 13.3 with {VIEW_SRC}",
+                  MIDPOINT * h**2 / F, MIDPOINT_WHY.format(MIDPOINT, h) + " on the view factor",
+                  balance(f, "a", "fixed_temperature"))]
+
 # ---------------------------------------------------------------------------------------------
 
 def _case(name, title, workflow, prepare, checks, levels=SAME, note=""):
     return Case(name, title, dict(levels), checks, workflow, prepare, note)
 
 
+VIEW_NOTE = ("Faces of 16 x 16 hexahedra; the parameter is the patch size over the faces' distance "
+             "(h/L = 1/2, 1/4, 1/8 at quick, default, fine).")
+SPHERE_NOTE = ("Cube-sphere shells r = 0.4..0.5 m and 1.0..1.1 m, n x n facets per cube face at quick, default, "
+               "fine n = 4, 8, 12; patch size 0.8/n m.")
 SIZES = lambda quick, default, fine: {"quick": quick, "default": default, "fine": fine}
 
 CASES = {c.name: c for c in [
@@ -522,6 +712,21 @@ CASES = {c.name: c for c in [
                "varies through the thickness, so the 3-D answer is the 2-D one. AB (y = 0) at 100 degC, DA (x = 0) "
                "insulated, BC and CD convect to 0 degC with h = 750 W/(m^2 K), k = 52 W/(m K). Mesh: 6n x 10n x 1 "
                "hexahedra of six tetrahedra (h = 0.1/n m); n = 1, 2, 8 at quick, default, fine."),
+    _case("exchange_discs", "view factor, coaxial parallel discs", "exchange_discs.toml", discs_prepare,
+          discs_checks, SIZES(0.5, 0.25, 0.125), note=VIEW_NOTE),
+    _case("exchange_rectangles", "view factor, aligned parallel squares", "exchange_rectangles.toml",
+          rectangles_prepare, rectangles_checks, SIZES(0.5, 0.25, 0.125), note=VIEW_NOTE),
+    _case("exchange_perpendicular", "view factor, perpendicular squares with a common edge",
+          "exchange_perpendicular.toml", perpendicular_prepare, perpendicular_checks, SIZES(0.5, 0.25, 0.125),
+          note=VIEW_NOTE),
+    _case("exchange_spheres", "grey exchange between concentric spheres", "exchange_spheres.toml",
+          spheres_prepare("exchange_spheres"), spheres_checks, SIZES(4, 8, 12), note=SPHERE_NOTE),
+    _case("exchange_enclosure", "closed enclosure with one heated surface (Newton)", "exchange_enclosure.toml",
+          spheres_prepare("exchange_enclosure"), enclosure_checks, SIZES(4, 8, 12), note=SPHERE_NOTE),
+    _case("exchange_plates", "grey exchange between parallel plates", "exchange_plates.toml", plates_prepare,
+          plates_checks, SIZES(1.0, 0.5, 0.25), note="1 m squares 0.1 m apart (F = 0.83), 32 x 32 hexahedra each; "
+          "the parameter is the patch size over the gap. As F tends to 1 the network tends to the large-plate "
+          "form q = sigma (T1^4 - T2^4) / (1/eps1 + 1/eps2 - 1)."),
     _case("stress_free", "free expansion, minimal support (heat -> map -> stress)", "stress_free.toml",
           bar_mesh, free_checks),
     _case("stress_bar", "bar restrained axially (heat -> map -> stress)", "stress_bar.toml", bar_mesh,
