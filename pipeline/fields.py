@@ -126,10 +126,22 @@ class StressField:
     largest first.  parts: part -> figures (peak von Mises [Pa] with location [m], principal extremes,
     safety factor and its criterion).  reactions: support -> force [N] (x, y, z).
     equilibrium: sum of reactions and applied loads [N] and its size relative to the largest force.
-    probes: name -> {"displacement_m", "von_mises_Pa"}.  solver: how the system was solved.
+    probes: name -> {"part", "displacement_m", "temperature_K", "stress_Pa" (xx, yy, zz, xy, yz, xz),
+    "principal_Pa" (largest first), "von_mises_Pa"}: the recovered field of the part the probe lies in.
+    lines: name -> one such record per point along the line, with "distance_m", "x_m", "outside".
+    features: singular features found, counted by kind (``stages.features``).
+    solver: how the system was solved.
     safety: (n_elements,) element safety factor by its part's criterion (inf where unloaded).
     nodal: part -> (point ids, (n, 6) stress [Pa]): the L2 projection within the part; point ids number
-    the vertices first, then (P2) the edge midpoints, as ``displacement`` does.
+    the vertices first, then (P2) the edge midpoints, as ``displacement`` does.  nodal_safety: part ->
+    (n,) safety factor at those points by the part's criterion (inf unloaded, NaN without a strength).
+    temperature: mapped temperature at the displacement points [K]; reference: stress-free
+    temperature per element [K].
+    supports: support -> {"kind", "force_N" (x, y, z) and, for normal supports (symmetry, contact),
+    "compression_N", "tension_N" (pressing and pulling totals, >= 0), "normal"; for contact also
+    "contact_area_m2", "separated_area_m2", "iterations", "least_pressing_N", "penetration_max_m"}.
+    cautions: records {"code", "where", "message", "data"} of results a reader must not miss (e.g.
+    "support_pulls": a bilateral normal support in tension).
     """
 
     displacement: np.ndarray
@@ -147,8 +159,15 @@ class StressField:
     nodal: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
     notices: tuple[str, ...] = ()
     meta: dict = field(default_factory=dict)
+    supports: dict[str, dict] = field(default_factory=dict)
+    cautions: tuple[dict, ...] = ()
+    lines: dict[str, list[dict]] = field(default_factory=dict)
+    features: dict[str, int] = field(default_factory=dict)
+    temperature: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    reference: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    nodal_safety: dict[str, np.ndarray] = field(default_factory=dict)
 
-    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety")
+    ARRAYS = ("displacement", "stress", "von_mises", "tresca", "principal", "safety", "temperature", "reference")
 
     def nodal_stress(self, part: str, point: int) -> np.ndarray:
         """Projected stress (6,) [Pa] of ``part`` at a point (vertex id, or P2 edge point)."""
@@ -161,11 +180,15 @@ class StressField:
     def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
         meta = {"order": self.order, "parts": self.parts, "reactions": self.reactions,
                 "equilibrium": self.equilibrium, "probes": self.probes, "solver": self.solver.to_dict(),
-                "notices": list(self.notices), "meta": self.meta, "nodal_parts": sorted(self.nodal)}
+                "notices": list(self.notices), "meta": self.meta, "nodal_parts": sorted(self.nodal),
+                "supports": self.supports, "cautions": list(self.cautions), "lines": self.lines,
+                "features": self.features}
         json.dumps(meta, allow_nan=False)
         arrays = {name: getattr(self, name) for name in self.ARRAYS}
         for i, part in enumerate(sorted(self.nodal)):
             arrays[f"nodal_points_{i}"], arrays[f"nodal_stress_{i}"] = self.nodal[part]
+            if part in self.nodal_safety:
+                arrays[f"nodal_safety_{i}"] = self.nodal_safety[part]
         return arrays, meta
 
     @classmethod
@@ -174,10 +197,15 @@ class StressField:
         solver["history"] = tuple(solver.get("history", ()))
         nodal = {p: (np.asarray(arrays[f"nodal_points_{i}"]), np.asarray(arrays[f"nodal_stress_{i}"]))
                  for i, p in enumerate(meta.get("nodal_parts", []))}
-        return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS}, order=meta["order"], parts=meta["parts"],
+        safety = {p: np.asarray(arrays[f"nodal_safety_{i}"]) for i, p in enumerate(meta.get("nodal_parts", []))
+                  if f"nodal_safety_{i}" in arrays}
+        return cls(**{n: np.asarray(arrays[n]) for n in cls.ARRAYS if n in arrays}, order=meta["order"],
+                   parts=meta["parts"], nodal_safety=safety,
                    reactions=meta["reactions"], equilibrium=meta["equilibrium"], probes=meta["probes"],
                    solver=SolveRecord(**solver), nodal=nodal, notices=tuple(meta["notices"]),
-                   meta=meta.get("meta", {}))
+                   meta=meta.get("meta", {}), supports=meta.get("supports", {}),
+                   cautions=tuple(meta.get("cautions", ())), lines=meta.get("lines", {}),
+                   features=meta.get("features", {}))
 
     def __repr__(self) -> str:
         umax = np.linalg.norm(self.displacement, axis=1).max()

@@ -14,6 +14,9 @@ from pipeline.stages import heat, mapping, stress
 from pipeline.stages.supports import Support
 
 
+
+ROOM = mapping.MapSpec(293.15)  # a stress-free temperature; these tests look at the mapped temperatures only
+
 def solid(k=100.0, e=70e9, nu=0.3, alpha=2e-5, name="m"):
     return from_record(name, {"conductivity": k, "youngs_modulus": e, "poisson_ratio": nu, "expansion": alpha,
                               "density": 2700.0, "yield_strength": 200e6}, "test")
@@ -56,7 +59,7 @@ def test_cross_mesh_reproduces_a_linear_field_and_the_same_stress():
 def test_cross_mesh_values_stay_within_the_source_range():
     thermal, structural = block(n=4, seed=3), block(n=7, seed=4)
     source = heated(thermal, generation=5e8)
-    load = mapping.transfer(source, thermal, structural)
+    load = mapping.transfer(source, thermal, structural, ROOM)
     assert source.temperature.max() > 420.0  # the generation makes an interior peak
     assert load.temperature.min() >= source.temperature.min() - 1e-12
     assert load.temperature.max() <= source.temperature.max() + 1e-12
@@ -68,7 +71,7 @@ def test_structural_model_may_omit_a_part():
     halves = lambda m: meshes.layers(m, 2, {"board": (0, 0.01), "pad": (0.01, 0.02)})  # noqa: E731
     thermal = block(n=5, jitter=0.0, parts=halves)
     board = mesh_mod.from_meshio(meshes.to_meshio(*_only_board(thermal)), unit="m")
-    load = mapping.transfer(heated(thermal), thermal, board)
+    load = mapping.transfer(heated(thermal), thermal, board, ROOM)
     assert load.diagnostics["outside"] == 0
     assert len(load.temperature) == len(board.points)
 
@@ -85,7 +88,7 @@ def _only_board(d):
 def test_points_slightly_outside_take_the_nearest_value_and_are_counted():
     thermal = block(n=4, jitter=0.0)
     structural = block(n=4, jitter=0.0, shift=(2e-5, 0.0, 0.0))
-    load = mapping.transfer(heated(thermal), thermal, structural)
+    load = mapping.transfer(heated(thermal), thermal, structural, ROOM)
     assert load.diagnostics["outside"] > 0
     assert load.diagnostics["max_distance_m"] == pytest.approx(2e-5, rel=1e-6)
 
@@ -94,7 +97,7 @@ def test_points_far_outside_stop_the_stage_naming_part_and_distance():
     thermal = block(n=4, jitter=0.0)
     structural = block(n=4, jitter=0.0, shift=(0.01, 0.0, 0.0))
     with pytest.raises(errors.InputError, match=r"outside the thermal mesh by up to 10 mm .* in parts body"):
-        mapping.transfer(heated(thermal), thermal, structural)
+        mapping.transfer(heated(thermal), thermal, structural, ROOM)
 
 
 def test_external_csv_and_vtu_fields(tmp_path):
@@ -107,7 +110,7 @@ def test_external_csv_and_vtu_fields(tmp_path):
     rows = ["x_mm,y_mm,z_mm,T_degC"] + [f"{x * 1e3},{y * 1e3},{z * 1e3},{field((x, y, z)) - 273.15}"
                                         for x, y, z in cloud]
     csv.write_text("\n".join(rows) + "\n")
-    load = mapping.from_file(csv, d, unit="mm", temperature_unit="degC")
+    load = mapping.from_file(csv, d, ROOM, unit="mm", temperature_unit="degC")
     np.testing.assert_allclose(load.temperature, field(d.points.T), rtol=1e-10)
     assert load.diagnostics["method"] == "external file"
 
@@ -115,13 +118,13 @@ def test_external_csv_and_vtu_fields(tmp_path):
     m = meshes.tensor(*[np.linspace(-0.001, 0.021, 5)] * 3)
     meshio.write(vtu, meshio.Mesh(m.p.T, [("tetra", m.t.T)],
                                   point_data={"T": field(m.p), "flux": np.zeros((m.nvertices, 3))}))
-    np.testing.assert_allclose(mapping.from_file(vtu, d, array="T").temperature, field(d.points.T), rtol=1e-10)
+    np.testing.assert_allclose(mapping.from_file(vtu, d, ROOM, array="T").temperature, field(d.points.T), rtol=1e-10)
     with pytest.raises(errors.InputError, match="name the temperature array; arrays there are: T, flux"):
-        mapping.from_file(vtu, d)
+        mapping.from_file(vtu, d, ROOM)
     with pytest.raises(errors.InputError, match="did you mean 'T'"):
-        mapping.from_file(vtu, d, array="t")
+        mapping.from_file(vtu, d, ROOM, array="t")
     with pytest.raises(errors.InputError, match="has 3 components"):
-        mapping.from_file(vtu, d, array="flux")
+        mapping.from_file(vtu, d, ROOM, array="flux")
 
 
 def test_bonded_parts_keep_their_own_expansion_and_stress_free_temperature():
@@ -153,4 +156,10 @@ def test_bonded_parts_keep_their_own_expansion_and_stress_free_temperature():
         np.testing.assert_allclose(f.stress[d.parts[part], 1:3], lam * eps - b, rtol=1e-9)
     assert abs(f.stress[d.parts["copper"], 1].mean() - f.stress[d.parts["ceramic"], 1].mean()) > 1e7
     with pytest.raises(errors.InputError, match="did you mean 'copper'"):
-        mapping.from_function(d, lambda x: 0 * x[0] + 300.0, mapping.MapSpec(reference_by_part={"coper": 300.0}))
+        mapping.from_function(d, lambda x: 0 * x[0] + 300.0, mapping.MapSpec(300.0, reference_by_part={"coper": 300.0}))
+
+
+def test_the_stress_free_temperature_is_required_and_the_message_says_why():
+    d = block(n=2)
+    with pytest.raises(errors.InputError, match=r"map.reference: give the stress-free temperature .* no default"):
+        mapping.from_function(d, lambda x: 300.0 + 0 * x[0], mapping.MapSpec(None))

@@ -114,6 +114,12 @@ class OutputSection(Strict):
         default=1.5, description="pass/fail threshold in the report (1.5 against yield is common practice)")
 
 
+class LineSection(Strict):
+    start: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(description="first point [m]")
+    end: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(description="last point [m]")
+    points: Annotated[int, Field(ge=2)] = Field(default=50, description="equally spaced points, ends included")
+
+
 class WorkflowBase(Strict):
     """The workflow file's tables except ``stages``, whose members come from the stage kinds."""
 
@@ -123,6 +129,8 @@ class WorkflowBase(Strict):
     parts: dict[str, PartSection]
     probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(
         default_factory=dict, description="named points (x, y, z) whose values every stage reports")
+    lines: dict[str, LineSection] = Field(default_factory=dict, description="name -> a straight line along which "
+                                          "temperature, displacement and stress are reported")
     output: OutputSection = OutputSection()
     # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
     # is in no store key

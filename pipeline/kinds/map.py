@@ -30,7 +30,8 @@ class MapStage(Strict):
     file_unit: LengthUnit = Field(default="m", description="length unit of the file's coordinates")
     temperature_unit: Literal["K", "degC"] = Field(default="K", description="unit of the file's temperatures")
     mesh: MeshSection | None = Field(default=None, description="a different structural mesh (cross-mesh mapping); default: the workflow's mesh")
-    reference: Temperature = Field(default=293.15, description="stress-free temperature")
+    reference: Temperature | None = Field(default=None, description="stress-free temperature [K], required: the "
+                                          "temperature at which the parts carry no thermal stress")
     reference_by_part: dict[str, Temperature] = Field(default_factory=dict, description="stress-free temperature of one part")
     tolerance: PositiveLength | None = Field(default=None, description="distance outside the source still "
                                              "accepted (nearest value, counted); default half the source's median edge")
@@ -51,6 +52,7 @@ def plan(ctx: base.Context, name: str, stage: MapStage, where: str) -> base.Stag
 
     target = ctx.domain_of(stage.mesh, f"stages.{name}.mesh") if stage.mesh else ctx.domain
     spec = mapping.MapSpec(stage.reference, stage.reference_by_part, stage.tolerance, stage.order)
+    mapping.check(target, spec, where)
     options = stage.model_dump(exclude={"source", "file", "mesh"})
     if stage.source is not None:
         read = {"upstream": base.upstream(ctx, stage.source, SOURCE, where).key}

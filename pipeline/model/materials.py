@@ -28,6 +28,8 @@ OPTIONAL = {
     "shear_modulus": "Pa",
     "yield_strength": "Pa",
     "tensile_strength": "Pa",
+    "tensile_strength_axes": "Pa",
+    "shear_strength_axes": "Pa",
     "valid_from": "K",
     "valid_to": "K",
 }
@@ -54,6 +56,8 @@ class Material:
     shear_modulus: tuple[float, ...] = ()
     yield_strength: float | None = None
     tensile_strength: float | None = None
+    tensile_strength_axes: tuple[float, ...] = ()
+    shear_strength_axes: tuple[float, ...] = ()
     brittle: bool = False
     valid_from: float | None = None
     valid_to: float | None = None
@@ -162,7 +166,8 @@ def from_record(name: str, record: dict, where: str) -> Material:
     for key in UNITS:
         if key not in record:
             continue
-        vector = key in ("conductivity", "youngs_modulus", "poisson_ratio", "expansion", "shear_modulus")
+        vector = key in ("conductivity", "youngs_modulus", "poisson_ratio", "expansion", "shear_modulus",
+                         "tensile_strength_axes", "shear_strength_axes")
         raw = record[key]
         seq = raw if isinstance(raw, list) else [raw]
         if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in seq):

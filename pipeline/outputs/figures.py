@@ -103,16 +103,20 @@ def temperature_cut(path: Path, domain, field, part: str | None = None) -> dict:
 
 
 def von_mises_deformed(path: Path, domain, sfield) -> dict:
-    """Element von Mises stress [MPa] on the deformed shape, displacement exaggerated and said so."""
-    nv = len(domain.points)
-    u = sfield.displacement[:nv]
+    """Von Mises stress [MPa] of the recovered field (per part, at its nodes: the stress VTU's) on the
+    deformed shape, displacement exaggerated and said so."""
+    from . import vtu
+
+    _headless()
+    grid = vtu.grid(domain, sfield, "stress", scale=1e3)
+    u = np.asarray(grid.point_data["displacement_m"])
     size = np.linalg.norm(np.ptp(domain.points, axis=0))
     umax = float(np.linalg.norm(u, axis=1).max())
     factor = 0.05 * size / umax if umax > 0 else 1.0
-    vm = sfield.von_mises / 1e6
-    grid = _grid(domain, {"u": u * 1e3}, {"vm": vm})
+    grid.point_data["u"] = u * 1e3
+    grid.point_data["vm"] = np.asarray(grid.point_data["von_mises_Pa"]) / 1e6
     deformed = grid.warp_by_vector("u", factor=factor).extract_surface(algorithm="dataset_surface")
-    shown = deformed.cell_data["vm"]
+    shown = deformed.point_data["vm"]
     clim = (float(shown.min()), float(shown.max()))
     _render(path, deformed, "vm", "von Mises [MPa]", STRESS_MAP, clim,
             f"von Mises on the deformed shape, displacement x {factor:.3g} (max {umax * 1e3:.3g} mm)",

@@ -30,21 +30,34 @@ CANDIDATES = 12  # nearest source tetrahedra tried per point (by centroid)
 
 @dataclass(frozen=True)
 class MapSpec:
-    """reference: stress-free temperature [K]; reference_by_part: part -> K (overrides the global value).
+    """reference: stress-free temperature [K], required: the temperature at which the assembly carries no
+    thermal stress (there is no neutral default: 20 degC and a bonding temperature give different
+    stresses).  reference_by_part: part -> K (overrides the global value); a part stress-free at its
+    own temperature is not bonded at it (see docs/theory.md, "Stress-free temperature and bonding").
     tolerance: largest distance [m] outside the source that takes the nearest value; None = half the
     source's median edge length.  order: order of the mapped field for cross-mesh and external sources
     (1: at the structural vertices)."""
 
-    reference: float = 293.15
+    reference: float | None
     reference_by_part: Mapping[str, float] = field(default_factory=dict)
     tolerance: float | None = None
     order: int = 1
 
 
+def check(domain, spec: MapSpec, where: str = "map") -> None:
+    """Raise one ``InputError`` listing every problem of ``spec`` on ``domain`` (the stress-free
+    temperatures: given, >= 0 K, for parts that exist)."""
+    _reference(domain, spec, where)
+
+
 def _reference(domain, spec: MapSpec, where: str) -> np.ndarray:
     problems = [errors.unknown_name("part", p, domain.parts, f"{where}.reference_by_part")
                 for p in spec.reference_by_part if p not in domain.parts]
-    values = [spec.reference, *spec.reference_by_part.values()]
+    if spec.reference is None:
+        problems.append(f"{where}.reference: give the stress-free temperature (the temperature at which the "
+                        "parts carry no thermal stress, e.g. the assembly temperature, \"25 degC\"); there is no "
+                        "default because every stress depends on it")
+    values = [v for v in (spec.reference, *spec.reference_by_part.values()) if v is not None]
     problems += [f"{where}: stress-free temperature must be >= 0 K, got {v}" for v in values if not v >= 0]
     if problems:
         raise errors.InputError(problems)
@@ -56,7 +69,7 @@ def _load(domain, values: np.ndarray, order: int, spec: MapSpec, diagnostics: di
     return ThermalLoad(values, order, _reference(domain, spec, where), diagnostics)
 
 
-def transfer(field_: TemperatureField, source_domain, target_domain, spec: MapSpec = MapSpec(),
+def transfer(field_: TemperatureField, source_domain, target_domain, spec: MapSpec,
              where: str = "map") -> ThermalLoad:
     """Temperature of a heat result on ``source_domain`` as a load on ``target_domain``."""
     base = {"source_min_K": float(field_.temperature.min()), "source_max_K": float(field_.temperature.max())}
@@ -69,14 +82,14 @@ def transfer(field_: TemperatureField, source_domain, target_domain, spec: MapSp
                  base | {"method": "cross mesh", "outside": outside, "max_distance_m": distance}, where)
 
 
-def from_function(domain, temperature: Callable, spec: MapSpec = MapSpec(), order: int = 2,
+def from_function(domain, temperature: Callable, spec: MapSpec, order: int = 2,
                   where: str = "map") -> ThermalLoad:
     """A load from a temperature given as a function of x (shape (3, n), m) -> K, e.g. a benchmark field."""
     values = np.asarray(temperature(fem.space(domain, order).doflocs), dtype=float)
     return _load(domain, values, order, spec, {"method": "function", "outside": 0, "max_distance_m": 0.0}, where)
 
 
-def from_file(path: str | Path, domain, spec: MapSpec = MapSpec(), array: str | None = None,
+def from_file(path: str | Path, domain, spec: MapSpec, array: str | None = None,
               unit: str = "m", temperature_unit: str = "K", where: str = "map") -> ThermalLoad:
     """A load from an external field file: VTU point data (``array`` names it) or a CSV with columns
     x, y, z, T (a header row is skipped).  unit: length unit of the file's coordinates;

@@ -210,9 +210,10 @@ def _quantity(name: str, h: list[float], values: list, record: dict) -> dict:
     q |= gci(h, values, SAFETY_FACTOR)
     stage, _, rest = name.partition(".")
     part = rest.split(".")[0]
-    if name.endswith(".von_mises_max_MPa") and any(
-            w["code"] == SINGULAR_PEAK and w["where"] == stage and w["data"].get("part") == part
-            for w in record["levels"][-1]["warning_records"]):
+    quantity = rest.split(".")[-1].removesuffix("_MPa").removesuffix("_max")
+    if any(w["code"] == SINGULAR_PEAK and w["where"] == stage and w["data"].get("part") == part
+           and quantity in w["data"].get("quantities", ["von_mises"])
+           for w in record["levels"][-1]["warning_records"]):
         q |= {"verdict": "singular", "gci_fine": None,
               "note": "the peak lies on a support or on the edge of a bonded interface, where the elastic "
                       "stress is singular and grows with refinement; not a converged value"

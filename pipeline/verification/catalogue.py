@@ -297,16 +297,39 @@ def free_checks(run, _):
     ]
 
 
+BAR = (0.1, 0.02, 0.02)  # the bar of bar_mesh [m]
+FACE = {"xmin": (0, -1), "xmax": (0, 1), "ymin": (1, -1), "ymax": (1, 1), "zmin": (2, -1), "zmax": (2, 1)}
+
+
 def restrained_checks(axes):
     def checks(run, _):
         e, nu, alpha, dt = _thermal(run)
         expected = -e * alpha * dt * {1: 1.0, 2: 1 / (1 - nu), 3: 1 / (1 - 2 * nu)}[axes]
         formula = {1: "-E alpha dT", 2: "-E alpha dT / (1 - nu)", 3: "-E alpha dT / (1 - 2 nu)"}[axes]
         s = run.result("stress")
-        return [Check(f"sigma_{c}{c} in every element", "MPa", expected, f"{TG}, sigma = {formula}", ROUND_OFF,
-                      "uniform stress lies in the element space: round-off only", _furthest(s.stress[:, i], expected))
-                for i, c in enumerate("xyz"[:axes])]
+        out = [Check(f"sigma_{c}{c} in every element", "MPa", expected, f"{TG}, sigma = {formula}", ROUND_OFF,
+                     "uniform stress lies in the element space: round-off only", _furthest(s.stress[:, i], expected))
+               for i, c in enumerate("xyz"[:axes])]
+        return out + reaction_checks(s, run.workflow.stages["stress"].supports, expected, axes)
     return checks
+
+
+def reaction_checks(s, supports, sigma: float, axes: int) -> list[Check]:
+    """Each symmetry plane of the restrained bar carries sigma_ii times its area along its normal and
+    nothing along it (the planes meet at edges, where the residual is split by each plane's direction)."""
+    out, scale = [], abs(sigma) * BAR[1] * BAR[2]
+    for name in supports:
+        axis, sign = FACE[name]
+        area = np.prod(np.delete(BAR, axis))
+        r = np.array(s.reactions[name])
+        normal = sign * (sigma if axis < axes else 0.0) * area  # compressed: the plane pushes inwards
+        out.append(Check(f"normal reaction on {name}", "N", normal, f"{TG}: sigma_ii times the face's area (statics)",
+                         ROUND_OFF, "uniform stress: round-off only", float(r[axis]), scale=scale,
+                         scale_text="sigma A_x"))
+        out.append(Check(f"tangential reaction on {name}", "N", 0.0, "a symmetry plane holds only its normal",
+                         ROUND_OFF, "round-off only", float(np.abs(np.delete(r, axis)).max()), scale=scale,
+                         scale_text="sigma A_x"))
+    return out
 
 
 def layers_mesh(work, _):
@@ -335,6 +358,22 @@ def layers_checks(run, _):
         out.append(Check(f"sigma_yy in the {part}", "MPa", expected, src, ROUND_OFF, why,
                          _furthest(s.stress[d.parts[part], 1], expected)))
     return out
+
+
+def bonded_checks(run, _):
+    s, w = run.result("stress"), run.workflow
+    low, high = run.material("low"), run.material("high")
+    bond = w.stages["map"].reference
+    scale = low.youngs_modulus[0] * abs(high.expansion[0] - low.expansion[0]) * abs(bond - kelvin_room())
+    return [Check("largest von Mises stress, bonded strip held at its bonding temperature", "MPa", 0.0,
+                  "definition of a bond at T_b: both joined parts are stress-free at T_b", ROUND_OFF,
+                  "uniform T equal to the stress-free temperature: no thermal strain, round-off only",
+                  max(f["von_mises_max_Pa"] for f in s.parts.values()), scale=scale,
+                  scale_text="E da (T_b - 25 degC)")]
+
+
+def kelvin_room() -> float:
+    return 298.15  # 25 degC [K]: the scale of a cool-down from the bond, for the table only
 
 
 def bimetal_mesh(work, n):
@@ -466,8 +505,11 @@ CASES = {c.name: c for c in [
           restrained_checks(1)),
     _case("stress_plate", "plate restrained in its plane", "stress_plate.toml", bar_mesh, restrained_checks(2)),
     _case("stress_block", "block restrained on every face", "stress_block.toml", bar_mesh, restrained_checks(3)),
-    _case("stress_layers", "bonded layers, own expansion and stress-free temperature", "stress_layers.toml",
+    _case("stress_layers", "layers with their own stress-free temperatures (a built-in misfit, not a bond)",
+          "stress_layers.toml",
           layers_mesh, layers_checks),
+    _case("stress_bonded", "bonded two-layer strip at its bonding temperature: stress-free", "stress_bonded.toml",
+          bimetal_mesh, bonded_checks, SIZES(20, 20, 20)),
     _case("stress_bimetal", "bimetallic strip curvature (P2)", "stress_bimetal.toml", bimetal_mesh, bimetal_checks,
           SIZES(20, 60, 60), note="Mesh: n x 2 x 4 hexahedra along, across and through; n = 20, 60, 60."),
     _case("stress_cantilever", "cantilever with a tip load (P2)", "stress_cantilever.toml", cantilever_mesh,
