@@ -465,6 +465,103 @@ def le11_checks(run, mesh_file):
 
 
 # ---------------------------------------------------------------------------------------------
+# Temperature-dependent stiffness and expansion (issue 20)
+
+ASTM = "ASTM E228 (definitions of the mean and instantaneous coefficients of linear expansion, from memory)"
+CURVE_EXACT = ("uniform temperature: the strain is uniform and the displacement linear, both in the element "
+               "space; the curve's integral is exact (polynomial antiderivative): round-off only")
+
+
+def _integrated(material, t: float, t_ref: float) -> float:
+    """int_{t_ref}^{t} (c0 + c1 T) dT of an instantaneous polynomial, written out (the closed form)."""
+    c0, c1 = material.curves["expansion"].polynomial
+    return c0 * (t - t_ref) + 0.5 * c1 * (t**2 - t_ref**2)
+
+
+def _uniform(run) -> tuple[float, float]:
+    return run.workflow.stages["heat"].fixed_temperature["xmin"], run.workflow.stages["map"].reference
+
+
+def _span(s, d, lo: float, hi: float) -> float:
+    """Mean x-displacement at x = hi minus that at x = lo [m] (vertex values)."""
+    p, ux = d.points, s.displacement[: len(d.points), 0]
+    return float(ux[np.abs(p[:, 0] - hi) < 1e-9].mean() - ux[np.abs(p[:, 0] - lo) < 1e-9].mean())
+
+
+def cycle_free_checks(run, _):
+    t, t_ref = _uniform(run)
+    m, s, d = run.material("growing"), run.result("stress"), run.domain("stress")
+    strain = _integrated(m, t, t_ref)
+    e = m.youngs_modulus[0]
+    return [
+        Check("lengthening of the bar", "mm", 0.1 * strain, f"{ASTM}: L int alpha_i dT", ROUND_OFF, CURVE_EXACT,
+              _span(s, d, 0.0, 0.1)),
+        Check("largest von Mises stress", "MPa", 0.0, f"{TG}: a free body under uniform T is stress-free", ROUND_OFF,
+              CURVE_EXACT, s.parts["body"]["von_mises_max_Pa"], scale=e * strain, scale_text="E eps_th"),
+    ]
+
+
+def cycle_restrained_checks(run, _):
+    t, t_ref = _uniform(run)
+    m, s = run.material("growing"), run.result("stress")
+    rows = np.asarray(m.curves["youngs_modulus"].table)
+    e_t = float(np.interp(t, rows[:, 0], rows[:, 1]))  # the table read at T by hand
+    expected = -e_t * _integrated(m, t, t_ref)
+    return [Check("sigma_xx in every element", "MPa", expected, f"{TG}, sigma = -E(T) int alpha_i dT", ROUND_OFF,
+                  "uniform stress with E and alpha read at the uniform T: round-off only",
+                  _furthest(s.stress[:, 0], expected))]
+
+
+def cycle_conventions_checks(run, _):
+    t, t_ref = _uniform(run)
+    s, d = run.result("stress"), run.domain("stress")
+    strain = _integrated(run.material("growing"), t, t_ref)
+    e = run.material("growing").youngs_modulus[0]
+    return [
+        Check("lengthening of the instantaneous half", "mm", 0.05 * strain, f"{ASTM}: L int alpha_i dT", ROUND_OFF,
+              CURVE_EXACT, _span(s, d, 0.0, 0.05)),
+        Check("lengthening of the mean half", "mm", 0.05 * strain,
+              f"{ASTM}: L (alpha_m(T) (T - T_0) - alpha_m(T_ref) (T_ref - T_0))", ROUND_OFF, CURVE_EXACT,
+              _span(s, d, 0.05, 0.1)),
+        Check("largest von Mises stress (no mismatch between the halves)", "MPa", 0.0,
+              "equal strains by the conversion: bonded halves stay stress-free", ROUND_OFF, CURVE_EXACT,
+              max(f["von_mises_max_Pa"] for f in s.parts.values()), scale=e * strain, scale_text="E eps_th"),
+    ]
+
+
+def conventions_mesh(work, _):
+    mk.box(work / "bar.msh", mk.planes(0, 0.1, 4), mk.planes(0, 0.02, 2), mk.planes(0, 0.02, 2), jitter=0.2,
+           parts={"tangent": (0, 0, 0.05), "secant": (0, 0.05, 0.1)})
+
+
+def _table_integral(rows, t: float, t_ref: float) -> float:
+    """int_{t_ref}^{t} of the piecewise-linear table, by the trapezoid rule on the nodes inside plus the
+    two partial segments (exact for a piecewise-linear function); t_ref and t inside the table."""
+    ts, vs = np.asarray(rows)[:, 0], np.asarray(rows)[:, 1]
+    grid = np.unique(np.concatenate([[t_ref, t], ts[(ts > t_ref) & (ts < t)]]))
+    values = np.interp(grid, ts, vs)
+    return float(np.sum(0.5 * (values[1:] + values[:-1]) * np.diff(grid)))
+
+
+def cycle_strip_checks(run, n):
+    s, d = run.result("stress"), run.domain("stress")
+    t, t_ref = _uniform(run)
+    low, high = run.material("low"), run.material("high")
+    mismatch = _table_integral(high.curves["expansion"].table, t, t_ref) - \
+        _table_integral(low.curves["expansion"].table, t, t_ref)
+    L, th, w = 0.06, 1e-3, 3e-3
+    kappa = 3 * mismatch / (2 * 2 * th)
+    p = d.points
+    uz = s.displacement[: len(p), 2]
+    mid = (np.abs(p[:, 2] - th) < 1e-9) & (np.abs(p[:, 1] - w / 2) < 1e-9) & (p[:, 0] > 0.2 * L) & (p[:, 0] < 0.8 * L)
+    curvature = -2 * np.polyfit(p[mid, 0], uz[mid], 2)[0]
+    return [Check("curvature of the mid-plane (middle 60 %)", "1/m", kappa,
+                  "S. Timoshenko, Analysis of bi-metal thermostats, J. Opt. Soc. Am. 11(3), 1925: 1/rho = 3 d_eps / "
+                  "(2h) for equal layers, d_eps = int (alpha_2 - alpha_1) dT", 1e-2,
+                  "as stress_bimetal (same mesh and element): discretisation and free-end effects, 1 %", float(curvature))]
+
+
+# ---------------------------------------------------------------------------------------------
 
 def _case(name, title, workflow, prepare, checks, levels=SAME, note=""):
     return Case(name, title, dict(levels), checks, workflow, prepare, note)
@@ -522,5 +619,14 @@ CASES = {c.name: c for c in [
                "(a CSV file written at run time), so the P2 load is the prescribed field. Quarter model; Gmsh "
                "meshes h = 0.1 m (quick, default) and 0.07 m (fine), shipped in pipeline/verification/cases/meshes "
                "(made by cases/le11/make_mesh.py)."),
+    _case("cycle_bar_free", "free bar, instantaneous alpha(T): L int alpha dT", "cycle_bar_free.toml", bar_mesh,
+          cycle_free_checks),
+    _case("cycle_bar_restrained", "restrained bar, E(T) table and alpha(T)", "cycle_bar_restrained.toml", bar_mesh,
+          cycle_restrained_checks),
+    _case("cycle_conventions", "mean and instantaneous expansion conventions give the same strain",
+          "cycle_conventions.toml", conventions_mesh, cycle_conventions_checks),
+    _case("cycle_strip", "bimetallic strip, alpha(T) tables: integrated mismatch (P2)", "cycle_strip.toml",
+          bimetal_mesh, cycle_strip_checks, SIZES(20, 60, 60),
+          note="Mesh as stress_bimetal; the expansion tables have a knee inside the temperature range."),
     *manufactured.CASES,
 ]}
