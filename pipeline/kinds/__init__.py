@@ -28,9 +28,9 @@ import importlib
 from importlib.metadata import entry_points
 from types import ModuleType
 
-from . import base, heat, map, stress  # noqa: A004 - 'map' is the stage kind's name
+from . import base, cycle, heat, map, stress  # noqa: A004 - 'map' is the stage kind's name
 
-_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (heat, map, stress)}
+_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (heat, map, stress, cycle)}
 _loaded_plugins = False
 
 #: hooks a kind may leave out, with what the runner does then
@@ -53,7 +53,7 @@ def register(module: ModuleType) -> ModuleType:
 
 def unregister(name: str) -> None:
     """Remove a kind added by ``register`` (the shipped kinds stay)."""
-    if name in ("heat", "map", "stress"):
+    if name in ("heat", "map", "stress", "cycle"):
         raise ValueError(f"the shipped stage kind {name!r} cannot be removed")
     _REGISTRY.pop(name, None)
     from ..flow import workflow

@@ -110,6 +110,15 @@ def von_mises(s: np.ndarray) -> np.ndarray:
     return np.sqrt(0.5 * ((xx - yy) ** 2 + (yy - zz) ** 2 + (zz - xx) ** 2) + 3 * (xy**2 + yz**2 + xz**2))
 
 
+def equivalent_strain(e: np.ndarray) -> np.ndarray:
+    """von Mises equivalent strain sqrt(2/3 e':e') from engineering Voigt strains (6, ...) [-]
+    (equal to the axial strain of a uniaxial, volume-preserving strain)."""
+    xx, yy, zz, yz, xz, xy = e
+    mean = (xx + yy + zz) / 3
+    dev = (xx - mean) ** 2 + (yy - mean) ** 2 + (zz - mean) ** 2 + 0.5 * (yz**2 + xz**2 + xy**2)
+    return np.sqrt(2.0 / 3.0 * dev)
+
+
 def principal(s: np.ndarray) -> np.ndarray:
     """Principal stresses (n, 3), largest first, from Voigt stresses (6, n) [Pa]."""
     xx, yy, zz, yz, xz, xy = s

@@ -563,6 +563,20 @@ def cycle_strip_checks(run, n):
 
 # ---------------------------------------------------------------------------------------------
 
+def cycle_range_checks(run, _):
+    w, m, c = run.workflow, run.material("aluminium"), run.result("cycle")
+    dt = w.stages["heat"].fixed_temperature["xmin"] - w.stages["cold"].fixed_temperature["xmin"]
+    expected = m.youngs_modulus[0] * m.expansion[0] * dt
+    src = f"{TG}: sigma = -E alpha dT in each state, so the range is E alpha (T_hot - T_cold)"
+    why = "uniform stress in each state lies in the element space: round-off only"
+    return [Check("range of sigma_xx, every element", "MPa", expected, src, ROUND_OFF, why,
+                  _furthest(c.component_range[:, 0], expected)),
+            Check("equivalent stress range, every element", "MPa", expected, src + " (uniaxial)", ROUND_OFF, why,
+                  _furthest(c.equivalent_range, expected)),
+            Check("equivalent range of the part (recovered field)", "MPa", expected, src, ROUND_OFF, why,
+                  c.parts["body"]["equivalent_range_max_Pa"])]
+
+
 def _case(name, title, workflow, prepare, checks, levels=SAME, note=""):
     return Case(name, title, dict(levels), checks, workflow, prepare, note)
 
@@ -628,5 +642,7 @@ CASES = {c.name: c for c in [
     _case("cycle_strip", "bimetallic strip, alpha(T) tables: integrated mismatch (P2)", "cycle_strip.toml",
           bimetal_mesh, cycle_strip_checks, SIZES(20, 60, 60),
           note="Mesh as stress_bimetal; the expansion tables have a knee inside the temperature range."),
+    _case("cycle_restrained", "restrained bar cycled between two temperatures: range E alpha dT",
+          "cycle_restrained.toml", bar_mesh, cycle_range_checks),
     *manufactured.CASES,
 ]}
