@@ -1,6 +1,7 @@
 """The ``thermochain`` command: subcommands, logging and exit codes; no logic beyond wiring.
 
-Exit status: 0 success, 2 bad input (workflow, mesh, names, values), 1 a run that failed.
+Exit status: 0 success, 2 bad input (workflow, mesh, names, values), 1 a run that failed; with
+``run --check-verdict``, 3 when the run succeeded but a stress verdict is 'fail' (VERDICT_FAILED).
 """
 
 from __future__ import annotations
@@ -33,6 +34,10 @@ def _parser() -> argparse.ArgumentParser:
         cmd.add_argument("--out", help="results folder (default: the workflow's output.folder)")
         cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or "
                                          ".thermochain-store beside the workflow)")
+        if name == "run":
+            cmd.add_argument("--check-verdict", action="store_true",
+                             help=f"exit with status {VERDICT_FAILED} when a stress stage's verdict is 'fail' "
+                                  "(a part below the required safety factor); the run itself is kept")
     check = sub.choices["check"]
     check.add_argument("--json", action="store_true", help="print the plan as JSON")
     _command(sub, "schema", "print the JSON Schema of workflow files")
@@ -126,6 +131,10 @@ def main(argv: list[str] | None = None) -> int:
         return 130
 
 
+#: exit status of ``run --check-verdict`` when the computation succeeded and a verdict failed
+VERDICT_FAILED = 3
+
+
 def _run(args) -> int:
     from .flow import runner
 
@@ -140,6 +149,10 @@ def _run(args) -> int:
     record = runner.run(args.workflow, args.set, args.store, args.out, args.rerun, progress=progress)
     if not args.quiet:
         _print_run(record)
+    failing = [name for name, st in record["stages"].items() if st.get("verdict", {}).get("verdict") == "fail"]
+    if getattr(args, "check_verdict", False) and failing:
+        print(f"thermochain: verdict fail in {', '.join(failing)} (--check-verdict)", file=sys.stderr)
+        return VERDICT_FAILED
     return 0
 
 

@@ -44,7 +44,7 @@ def test_demo_workflow_runs_and_writes_summary_and_vtu(tmp_path):
     assert mech["equilibrium"]["relative"] < 1e-8
     assert "ductile" in mech["parts"]["spreader"]["criterion"]
     grid = meshio.read(out / mech["vtu"])
-    assert grid.point_data["displacement_m"].shape[1] == 3 and "von_mises_Pa" in grid.cell_data
+    assert grid.point_data["displacement_m"].shape[1] == 3 and "von_mises_Pa" in grid.point_data
     assert (out / "summary.csv").read_text().startswith("stage,kind,item,quantity,value")
     again = thermochain("run", DEMO, "--out", out, "--store", tmp_path / "store")
     statuses = {n: s["status"] for n, s in json.loads((out / "summary.json").read_text())["stages"].items()}
