@@ -31,7 +31,7 @@ class JointSection(Strict):
     distance: PositiveLength | None = Field(default=None, description="distance from the neutral point L_D; default "
                                             "the largest in-plane distance of the part's points from neutral_point")
     neutral_point: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(
-        default_factory=lambda: [0.0, 0.0, 0.0], description="the point that does not move (a symmetry corner)")
+        default_factory=lambda: [0.0, 0.0, 0.0], description="the point that does not move (a symmetry corner); default the origin")
     height: PositiveLength | None = Field(default=None, description="joint height h; default the part's z extent")
     factor: float = Field(default=1.0, gt=0, description="Engelmaier's empirical factor F (about 1 leadless)")
     cycles_per_day: float = Field(default=24.0, gt=0, description="cyclic frequency f (model limits 1-1000)")
