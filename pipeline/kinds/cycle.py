@@ -84,7 +84,7 @@ def plan(ctx: base.Context, name: str, stage: CycleStage, where: str) -> base.St
     joints = {n: life.Joint(j.part, j.component, j.board, j.model, j.distance, tuple(j.neutral_point), j.height,
                             j.factor, j.cycles_per_day, j.lead_stiffness, j.area, j.ductility, j.exponent, j.source)
               for n, j in stage.joints.items()}
-    spec = cycle.CycleSpec(tuple(stage.states), mats, joints)
+    spec = cycle.CycleSpec(tuple(stage.states), mats, joints, planned[0].spec.supports)
     problems += life.check(domain, joints, mats, where)
     if problems:
         raise errors.InputError(problems)
@@ -143,6 +143,15 @@ def notices(name, entry, domain, context) -> list[Notice]:
     return out
 
 
+def _flag(rec: dict) -> str:
+    near = rec.get("near")
+    return "" if near is None else f"singular: {near['code'].replace('_', ' ')} ({near['owner']})"
+
+
+def _away(rec: dict) -> str:
+    return "" if rec.get("away") is None else _mpa(rec["away"])
+
+
 def _count(n) -> str:
     return "no strain range" if n is None else f"{n:.3g}"
 
@@ -157,10 +166,12 @@ def report(entry, context) -> list[str]:
     out = [f"<p>Ranges between the states {', '.join(entry['states'])} ({entry['recovery']}); elastic analysis. "
            f"Superposition: {'used' if entry['superposition']['used'] else 'not used'} "
            f"({entry['superposition']['why']}).</p>"]
-    out.append(table(["part", "equivalent range [MPa]", "between", "at [mm]", "mean von Mises [MPa]",
+    out.append(table(["part", "equivalent range [MPa]", "flag", "away from features [MPa]", "between", "at [mm]",
+                      "mean von Mises [MPa]",
                       "mean hydrostatic [MPa]", "von Mises range [MPa]", "largest component range [MPa]",
                       "von Mises max [MPa] (state)", "von Mises min [MPa] (state)", "strain range [-]"], [
-        [p, _mpa(f["equivalent_range_max_Pa"]), " / ".join(f["between"]), ", ".join(f"{c * 1e3:.2f}" for c in f["at_m"]),
+        [p, _mpa(f["equivalent_range_max_Pa"]), _flag(f["equivalent_range"]), _away(f["equivalent_range"]),
+         " / ".join(f["between"]), ", ".join(f"{c * 1e3:.2f}" for c in f["at_m"]),
          _mpa(f["mean_von_mises_Pa"]), _mpa(f["mean_hydrostatic_Pa"]), _mpa(f["von_mises_range_max_Pa"]),
          max(f["component_range_max_Pa"].items(), key=lambda kv: kv[1])[0] + " " +
          _mpa(max(f["component_range_max_Pa"].values())),
@@ -185,7 +196,8 @@ def report(entry, context) -> list[str]:
 
 
 def console(entry) -> list[str]:
-    lines = [f"  {p:<16} equivalent range {f['equivalent_range_max_Pa'] / 1e6:9.2f} MPa ({' / '.join(f['between'])}),"
+    lines = [f"  {p:<16} equivalent range {f['equivalent_range_max_Pa'] / 1e6:9.2f} MPa ({' / '.join(f['between'])}"
+             f"{'; at a singular feature, away ' + _away(f['equivalent_range']) + ' MPa' if f['equivalent_range']['near'] else ''}),"
              f" mean von Mises {f['mean_von_mises_Pa'] / 1e6:.2f} MPa, strain range {f['strain_range_max']:.3g}"
              for p, f in entry["parts"].items()]
     for joint, j in entry.get("joints", {}).items():
@@ -200,6 +212,8 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
     out: dict[str, float | None] = {}
     for part, f in entry.get("parts", {}).items():
         out[f"{name}.{part}.equivalent_range_MPa"] = f["equivalent_range_max_Pa"] / 1e6
+        away = f["equivalent_range"]["away"]
+        out[f"{name}.{part}.equivalent_range_away_MPa"] = None if away is None else away / 1e6
         out[f"{name}.{part}.strain_range"] = f["strain_range_max"]
     for joint, j in entry.get("joints", {}).items():
         out[f"{name}.joints.{joint}.engelmaier_cycles"] = j["engelmaier"]["cycles_50pct"]

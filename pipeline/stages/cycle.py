@@ -10,7 +10,9 @@ For states a, b with stresses sigma_a, sigma_b (Voigt, Pa):
   strain range          von Mises equivalent of the mechanical (elastic) strain difference S_b sigma_b -
                         S_a sigma_a of the governing pair (S = C^-1 at the element's temperature in that state).
 Per part the figures come from each state's recovered nodal field (one field per part, as every stress
-output); per element from the element means (for the VTU file and the figure).  Linear elasticity:
+output); a peak range near a singular feature (``features``: bimaterial free edges, re-entrant edges,
+support rims) is flagged and the peak away from such features reported beside it, as the stress stage
+does; per element from the element means (for the VTU file and the figure).  Linear elasticity:
 the ranges of an elastic analysis, no plasticity or creep (solder relaxes: see docs/limits.md).
 """
 
@@ -25,7 +27,7 @@ import numpy as np
 
 from .. import errors
 from ..fields import CycleField, StressField
-from . import constitutive, fem, life
+from . import constitutive, features, fem, life
 
 STAGE_VERSION = 1
 
@@ -33,11 +35,13 @@ STAGE_VERSION = 1
 @dataclass(frozen=True)
 class CycleSpec:
     """states: the state names in order (at least two).  materials: part -> Material (for the strain).
-    joints: name -> ``life.Joint`` (solder-joint life estimates; empty for none)."""
+    joints: name -> ``life.Joint`` (solder-joint life estimates; empty for none).  supports: the states'
+    supports (surface -> Support), for the singular features the range peaks are flagged at."""
 
     states: tuple[str, ...]
     materials: Mapping[str, object]
     joints: Mapping[str, object] = field(default_factory=dict)
+    supports: Mapping[str, object] = field(default_factory=dict)
 
 
 def check(domain, fields: Mapping[str, StressField], spec: CycleSpec, where: str = "cycle") -> None:
@@ -101,12 +105,16 @@ def evaluate(domain, fields: Mapping[str, StressField], spec: CycleSpec, where: 
     n = np.arange(len(domain.tetrahedra))
     a, b = elements["pair"][:, 0], elements["pair"][:, 1]
     strain_range = constitutive.equivalent_strain((strains[b, n] - strains[a, n]).T)
-    xyz = fem.space(domain, states[0].order).doflocs.T
+    order = states[0].order
+    xyz = fem.space(domain, order).doflocs.T
+    found = features.find(domain, spec.supports)
     parts = {}
     for part in sorted(domain.parts):
         dofs = states[0].nodal[part][0]
         nodal = ranges(np.stack([f.nodal[part][1] for f in states]))
         parts[part] = _part_figures(spec.states, nodal, xyz[dofs], elements, strain_range, domain.parts[part])
+        parts[part]["equivalent_range"] = features.flag(nodal["equivalent_range"], xyz[dofs], features.point_sizes(
+            domain, order, domain.parts[part], dofs), found, part)
     joints = life.estimate(domain, spec.joints, spec.materials, states, spec.states, parts, strain_range)
     return CycleField(states=tuple(spec.states), strain_range=strain_range, parts=parts, life=joints,
                       meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,

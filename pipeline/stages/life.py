@@ -159,7 +159,7 @@ def estimate(domain, joints, materials, states, names, parts, strain_range) -> d
         }
         if j.ductility is not None:
             ids = domain.parts[j.part]
-            vol = domain.element_volumes()[ids]
+            vol = domain.element_volumes[ids]
             averaged = float(np.sum(strain_range[ids] * vol) / np.sum(vol))
             record["coffin_manson"] = {
                 "strain_range_volume_mean": averaged, "strain_range_peak": float(strain_range[ids].max()),
