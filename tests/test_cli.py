@@ -49,6 +49,12 @@ def test_demo_workflow_runs_and_writes_summary_and_vtu(tmp_path):
     again = thermochain("run", DEMO, "--out", out, "--store", tmp_path / "store")
     statuses = {n: s["status"] for n, s in json.loads((out / "summary.json").read_text())["stages"].items()}
     assert again.returncode == 0 and set(statuses.values()) == {"reused"}
+    # the verdict is part of the result; --check-verdict turns 'fail' into exit status 3 (reused stages)
+    assert mech["verdict"]["verdict"] in ("pass", "fail", "no criterion")
+    strict = thermochain("run", DEMO, "--out", out, "--store", tmp_path / "store", "--check-verdict",
+                         "--set", "output.required_safety_factor=1e6")
+    assert strict.returncode == 3 and "verdict fail in stress" in strict.stderr, strict.stderr
+    assert json.loads((out / "summary.json").read_text())["status"] == "ok"  # the computation succeeded
 
 
 def test_check_validates_without_solving(tmp_path):

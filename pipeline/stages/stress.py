@@ -185,7 +185,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     applied = [float(f_mech[pdofs[:, i]].sum()) for i in range(3)]
     equilibrium = _equilibrium(reactions, applied, float(np.abs(f_thermal + f_mech).max(initial=0.0)))
     support_records, cautions = _support_records(domain, space, spec.supports, constraints, residual, pdofs, held,
-                                                 reactions, where)
+                                                 reactions, where)  # cautions' places are relative to the stage
 
     found = features.find(domain, spec.supports)
     parts, elements, nodal, nodal_safety = recovery.recover(domain, per_part, u, spec.order, load, found)
@@ -195,7 +195,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
-        supports=support_records, cautions=tuple(cautions) + _singular_cautions(parts, where), lines=lines,
+        supports=support_records, cautions=tuple(cautions) + _singular_cautions(parts), lines=lines,
         features=found.counts(), nodal_safety=nodal_safety,
         temperature=recovery.at_points(domain, spec.order, load) if load is not None else np.zeros(0),
         reference=np.asarray(load.reference, float) if load is not None else np.zeros(0),
@@ -263,7 +263,7 @@ def _support_records(domain, space, given, constraints, residual, pdofs, held, r
                     "penetration_max_m": float(held[c.name]["penetration_m"].max(initial=0.0))}
         elif not given[c.name].mirror and rec["tension_N"] > TENSION_SHARE * (rec["tension_N"] + rec["compression_N"]):
             cautions.append({
-                "code": "support_pulls", "where": f"{where}.supports.{c.name}",
+                "code": "support_pulls", "where": f"supports.{c.name}",
                 "message": (f"support {c.name} ({given[c.name].kind}) pulls the body with {rec['tension_N']:.4g} N "
                             f"in total (it presses with {rec['compression_N']:.4g} N elsewhere); a surface resting "
                             "on a foundation cannot pull: use kind = \"contact\", which lets it lift off (or, if "
@@ -346,9 +346,10 @@ def _lines(domain, order, u, nodal, load, lines) -> dict[str, list[dict]]:
     return out
 
 
-def _singular_cautions(parts: dict, where: str) -> tuple[dict, ...]:
+def _singular_cautions(parts: dict) -> tuple[dict, ...]:
     """A caution record for each part with a peak (von Mises, largest principal, utilisation) at a
-    singular feature; data names the flagged quantities and the feature of the first."""
+    singular feature; data names the flagged quantities and the feature of the first.  ``where`` is
+    relative to the stage (a stored result must not name the workflow file it was computed for)."""
     out = []
     for part, f in parts.items():
         flagged = [q for q in ("von_mises", "principal_max", "utilisation") if q in f and f[q]["near"] is not None]
@@ -357,7 +358,7 @@ def _singular_cautions(parts: dict, where: str) -> tuple[dict, ...]:
         near = f[flagged[0]]["near"]
         uses = ("the safety factor uses the peak away from such features" if "utilisation" in flagged else
                 "the safety factor's own peak is away from them")
-        out.append({"code": "singular_peak", "where": f"{where}.parts.{part}",
+        out.append({"code": "singular_peak", "where": f"parts.{part}",
                     "message": (f"the peak {', '.join(q.replace('_', ' ') for q in flagged)} of {part} lies "
                                 f"{near['distance_m'] * 1e3:.3g} mm from a {near['code'].replace('_', ' ')} "
                                 f"({near['owner']}), where the elastic stress is singular and grows with refinement; "
