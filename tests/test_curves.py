@@ -66,3 +66,26 @@ def test_bad_curves_are_named(extra, words):
     with pytest.raises(errors.InputError) as exc:
         materials.from_record("m", record, "lib.toml")
     assert words in str(exc.value) and "material 'm'" in str(exc.value)
+
+
+def test_laminate_rules_and_bad_layers():
+    # two isotropic layers: in-plane k in parallel, through-thickness in series (composite-wall closed
+    # forms, Incropera et al. 6th ed. sec. 3.1, from memory); a full-copper patterned layer is copper
+    lib = materials.library()
+    cu, al = lib["copper_c11000"], lib["alumina_96"]
+    out = lib.extended({"two": {"kind": "laminate", "layers": [{"material": "copper_c11000", "thickness": 1e-3},
+                                                               {"material": "alumina_96", "thickness": 3e-3}]}}, "t")
+    m = out["two"]
+    assert m.kind == "orthotropic"
+    assert m.conductivity[0] == pytest.approx((cu.conductivity[0] + 3 * al.conductivity[0]) / 4, rel=1e-14)
+    assert m.conductivity[2] == pytest.approx(4 / (1 / cu.conductivity[0] + 3 / al.conductivity[0]), rel=1e-14)
+    same = lib.extended({"cu": {"kind": "laminate", "layers": [
+        {"material": "copper_c11000", "thickness": 1e-3, "fraction": 1.0, "fill": "fr4"}]}}, "t")["cu"]
+    assert same.expansion == pytest.approx(cu.expansion * 3, rel=1e-12)
+    assert same.youngs_modulus == pytest.approx(cu.youngs_modulus * 3, rel=1e-12)
+    with pytest.raises(errors.InputError) as exc:
+        lib.extended({"bad": {"kind": "laminate", "layers": [{"material": "coper", "thickness": -1.0},
+                                                             {"material": "fr4", "thickness": 1e-3, "fraction": 0.5}]}},
+                     "lib.toml")
+    text = str(exc.value)
+    assert "copper_c11000" in text and "positive length" in text and "needs fill" in text

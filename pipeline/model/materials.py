@@ -347,10 +347,18 @@ class Library:
 
     def extended(self, records: dict, where: str) -> "Library":
         """A library with ``records`` (name -> TOML table) added; a name already present is replaced."""
+        from . import laminate
+
         problems, added = [], {}
-        for name, record in records.items():
+        plain = {n: r for n, r in records.items() if not (isinstance(r, dict) and r.get("kind") == "laminate")}
+        for name, record in plain.items():
             try:
                 added[name] = from_record(name, record, where)
+            except errors.InputError as exc:
+                problems += exc.problems
+        for name in (n for n in records if n not in plain):  # a stack-up reads the materials above
+            try:
+                added[name] = laminate.build(name, records[name], Library({**self.materials, **added}, {}), where)
             except errors.InputError as exc:
                 problems += exc.problems
         if problems:

@@ -577,6 +577,39 @@ def cycle_range_checks(run, _):
                   c.parts["body"]["equivalent_range_max_Pa"])]
 
 
+def cycle_laminate_checks(run, _):
+    from ..model import materials
+
+    library = materials.library()  # the layers are library materials
+    cu, al = library["copper_c11000"], library["alumina_96"]
+    layers = [(1e-3, cu), (2e-3, al)]
+    t = sum(h for h, _ in layers)
+    k_in = sum(h * m.conductivity[0] for h, m in layers) / t
+    k_z = t / sum(h / m.conductivity[0] for h, m in layers)
+    biaxial = [(h, m.youngs_modulus[0] / (1 - m.poisson_ratio[0]), m.expansion[0], m.poisson_ratio[0]) for h, m in layers]
+    a_in = sum(h * b * a for h, b, a, _ in biaxial) / sum(h * b for h, b, _, _ in biaxial)
+    a_z = sum(h * (a + 2 * nu / (1 - nu) * (a - a_in)) for h, _, a, nu in biaxial) / t
+    w, s, d = run.workflow, run.result("stress"), run.domain("stress")
+    dt = w.stages["heat"].fixed_temperature["xmin"] - w.stages["map"].reference
+    src_k = "Incropera et al. 6th ed., sec. 3.1 (composite walls), from memory"
+    src_a = "R.M. Jones, Mechanics of Composite Materials, 2nd ed., ch. 4 (laminate expansion), from memory"
+    why = "linear field in the element space: round-off only"
+    drop = {n: w.stages[n].fixed_temperature for n in ("along", "through")}
+    p, uz = d.points, s.displacement[: len(d.points), 2]
+    rise_z = float(uz[np.abs(p[:, 2] - 0.02) < 1e-9].mean() - uz[np.abs(p[:, 2]) < 1e-9].mean())
+    return [
+        Check("heat in along the layers (parallel)", "W",
+              k_in * 0.02 * 0.02 * (drop["along"]["xmin"] - drop["along"]["xmax"]) / 0.1, src_k, ROUND_OFF, why,
+              balance(run.result("along"), "xmin")),
+        Check("heat in through the layers (series)", "W",
+              k_z * 0.1 * 0.02 * (drop["through"]["zmin"] - drop["through"]["zmax"]) / 0.02, src_k, ROUND_OFF, why,
+              balance(run.result("through"), "zmin")),
+        Check("lengthening in the plane (stiffness-weighted alpha)", "mm", a_in * dt * 0.1, src_a, ROUND_OFF, why,
+              _span(s, d, 0.0, 0.1)),
+        Check("thickening through the layers", "mm", a_z * dt * 0.02, src_a, ROUND_OFF, why, rise_z),
+    ]
+
+
 def _case(name, title, workflow, prepare, checks, levels=SAME, note=""):
     return Case(name, title, dict(levels), checks, workflow, prepare, note)
 
@@ -644,5 +677,7 @@ CASES = {c.name: c for c in [
           note="Mesh as stress_bimetal; the expansion tables have a knee inside the temperature range."),
     _case("cycle_restrained", "restrained bar cycled between two temperatures: range E alpha dT",
           "cycle_restrained.toml", bar_mesh, cycle_range_checks),
+    _case("cycle_laminate", "laminate of two isotropic layers: effective k and alpha from the stack-up",
+          "cycle_laminate.toml", bar_mesh, cycle_laminate_checks),
     *manufactured.CASES,
 ]}
