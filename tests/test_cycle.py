@@ -85,3 +85,27 @@ def test_bad_cycles_are_named(tmp_path, setting, words):
     with pytest.raises(errors.InputError) as exc:
         runner.plan(_case(tmp_path), [setting])
     assert words in str(exc.value) and "stages.cycle" in str(exc.value)
+
+
+def _superposition_case(tmp_path):
+    shutil.copy(CASES / "_output.toml", tmp_path / "_output.toml")
+    shutil.copy(CASES / "cycle_superposition.toml", tmp_path / "cycle_superposition.toml")
+    catalogue.bimetal_mesh(tmp_path, 6)
+    return tmp_path / "cycle_superposition.toml"
+
+
+def test_superposition_is_refused_with_its_reason_when_expansion_depends_on_temperature(tmp_path):
+    path = _superposition_case(tmp_path)
+    summary = runner.run(path, ["materials.high.expansion_polynomial=[1.2e-5, 1.0e-8]"],
+                         store=str(tmp_path / "store"), out=str(tmp_path / "out"))
+    record = summary["stages"]["superposed"]["superposition"]
+    assert record["used"] is False and "temperature-dependent stiffness or expansion of part high" in record["why"]
+    # solved directly instead: the same ranges as the direct cycle (the same solves, in another order)
+    direct = summary["stages"]["direct"]["parts"]["high"]["equivalent_range_max_Pa"]
+    assert summary["stages"]["superposed"]["parts"]["high"]["equivalent_range_max_Pa"] == pytest.approx(direct, rel=1e-12)
+
+
+def test_superposed_states_need_a_template(tmp_path):
+    with pytest.raises(errors.InputError) as exc:
+        runner.plan(_superposition_case(tmp_path), ["stages.superposed.template=\"on\""])
+    assert "stages.superposed.template" in str(exc.value) and "on_stress" in str(exc.value)

@@ -10,9 +10,9 @@ from pydantic import Field
 
 from .. import errors
 from ..fields import CycleField, StressField
-from ..flow.workflow import Length, PositiveLength, Strict, quantity
+from ..flow.workflow import Length, PositiveLength, Power, Strict, Temperature, quantity
 from ..notices import Notice, Problem
-from ..stages import cycle, life
+from ..stages import cycle, life, superpose
 from . import base
 
 NAME = "cycle"
@@ -42,21 +42,78 @@ class JointSection(Strict):
     source: str = Field(default="", description="where the Coffin-Manson constants come from (required with them)")
 
 
+class StateSection(Strict):
+    ambient: Temperature = Field(description="ambient of every convection surface of the template's heat stage")
+    power: dict[str, Power] = Field(default_factory=dict, description="part powers of the state (parts not named: 0 W)")
+
+
 class CycleStage(Strict):
     kind: Literal["cycle"]
-    states: list[str] = Field(min_length=2, description="the stress stages compared (two or more states of one model)")
+    states: list[str] = Field(min_length=2, description="the states compared, in order: stress stages, or names "
+                              "under `superposed` (two or more states of one model)")
+    template: str | None = Field(default=None, description="a stress stage whose heat -> map -> stress chain the "
+                                 "`superposed` states vary (their ambient and powers)")
+    superposed: dict[str, StateSection] = Field(default_factory=dict, description="states given by ambient and "
+                                                "powers, built from unit solutions when the chain is linear")
+    superposition: Literal["auto", "off"] = Field(default="auto", description="`off`: solve each superposed state "
+                                                  "through the whole chain instead (e.g. to compare)")
     joints: dict[str, JointSection] = Field(default_factory=dict, description="named solder joints: life estimates")
 
     def upstream_names(self) -> list[str]:
-        return list(self.states)
+        direct = [s for s in self.states if s not in self.superposed]
+        return direct + ([self.template] if self.template and self.superposed else [])
 
 
 Schema = CycleStage
 
 
+def _chain(ctx: base.Context, stage: CycleStage, where: str, problems: list) -> superpose.Chain | None:
+    """The template's heat -> map -> stress chain, or None (problems say why)."""
+    if not stage.superposed:
+        if stage.template:
+            problems.append(f"{where}.template: a template is read by `superposed` states; there are none")
+        return None
+    if stage.template is None:
+        problems.append(f"{where}.template: superposed states need a template stress stage (its chain is varied)")
+        return None
+    t = ctx.planned.get(stage.template)
+    m = ctx.planned.get(t.source) if t is not None and t.source else None
+    h = ctx.planned.get(m.source) if m is not None and m.source else None
+    if t is None or t.kind != "stress" or m is None or h is None or h.kind != "heat":
+        valid = [n for n, p in ctx.planned.items() if p.kind == "stress"]
+        problems.append(errors.unknown_name("stress stage reading a map of a heat stage", stage.template, valid,
+                                            f"{where}.template"))
+        return None
+    for state, s in stage.superposed.items():
+        problems += [errors.unknown_name("part", p, h.domain.parts, f"{where}.superposed.{state}.power")
+                     for p in s.power if p not in h.domain.parts]
+    return superpose.Chain(h.domain, h.spec, m.spec, t.domain, t.spec)
+
+
+def _superposition(chain, stage: CycleStage) -> dict:
+    """Whether the superposed states are built from unit solutions, and why (or why not)."""
+    if chain is None:
+        return {"used": False, "why": "each state is its own stress stage, solved and stored on its own"}
+    terms = superpose.linear_terms(chain)
+    if terms:
+        return {"used": False, "why": f"refused, each superposed state solved directly: not exact with "
+                                      f"{'; '.join(terms)}"}
+    if stage.superposition == "off":
+        return {"used": False, "why": "superposition = \"off\": each superposed state solved directly"}
+    parts = sorted({p for s in stage.superposed.values() for p in s.power})
+    return {"used": True, "parts": parts,
+            "why": (f"{len(stage.superposed)} states from {len(parts)} heat and {1 + len(parts)} stress unit solutions "
+                    "(+1 with per-part stress-free temperatures); exact because the heat problem is linear "
+                    "(constant conductivities, film coefficients independent of temperature, no radiation), the "
+                    "states differ only in the ambient and part powers, mapping is linear in the field, stiffness "
+                    "and expansion do not depend on temperature, the supports are bilateral and hold at zero, and "
+                    "there are no mechanical loads")}
+
+
 def plan(ctx: base.Context, name: str, stage: CycleStage, where: str) -> base.StagePlan:
     problems, planned = [], []
-    for state in stage.states:
+    chain = _chain(ctx, stage, where, problems)
+    for state in (s for s in stage.states if s not in stage.superposed):
         kind = ctx.kinds.get(state)
         if kind is not None and kind != "stress":
             problems.append(Problem("stage.source_kind", f"stage '{state}' is a {kind} stage; a cycle compares "
@@ -68,8 +125,13 @@ def plan(ctx: base.Context, name: str, stage: CycleStage, where: str) -> base.St
             planned.append(ctx.planned[state])
     if len(set(stage.states)) != len(stage.states):
         problems.append(f"{where}.states: a state is named twice")
+    unused = sorted(set(stage.superposed) - set(stage.states))
+    if unused:
+        problems.append(f"{where}.superposed: {', '.join(unused)} not among the states")
     if problems:
         raise errors.InputError(problems)
+    if chain is not None:
+        planned.append(ctx.planned[stage.template])
     domain = planned[0].domain
     for p in planned[1:]:
         if p.domain.source_hash != domain.source_hash or p.spec.order != planned[0].spec.order:
@@ -92,19 +154,37 @@ def plan(ctx: base.Context, name: str, stage: CycleStage, where: str) -> base.St
         "options": stage.model_dump(), "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "upstream": {p.name: p.key for p in planned}}
     return base.StagePlan(name, NAME, domain, spec, inputs, materials=planned[0].materials,
-                          sources=tuple(stage.states))
+                          sources=tuple(stage.upstream_names()),
+                          prepared={"chain": chain, "superposition": _superposition(chain, stage)})
 
 
 def compute(plan: base.StagePlan, upstream) -> CycleField:
-    fields = {name: result for name, (result, _) in zip(plan.spec.states, upstream)}
-    return cycle.evaluate(plan.domain, fields, plan.spec, plan.where)
+    import dataclasses
+
+    fields = {name: result for name, (result, _) in zip(plan.sources, upstream)}
+    stage, chain, record = plan.stage, plan.prepared["chain"], dict(plan.prepared["superposition"])
+    if chain is not None:
+        if record["used"]:
+            units = superpose.units(chain, record["parts"], plan.where)
+            for state, s in stage.superposed.items():
+                fields[state] = superpose.state(units, s.ambient, s.power)
+            own = superpose.state(units, *superpose.template_loads(chain))
+            record |= {"solves": units.solves, "template_check": {
+                "stage": stage.template, "relative_difference": superpose.relative_difference(own, fields[stage.template]),
+                "what": "the template's own loads superposed against its direct solve (recovered nodal stresses)"}}
+        else:
+            for state, s in stage.superposed.items():
+                fields[state] = superpose.direct(chain, s.ambient, s.power, plan.where)
+            record["solves"] = {"heat": len(stage.superposed), "stress": len(stage.superposed)}
+    field = cycle.evaluate(plan.domain, fields, plan.spec, plan.where)
+    return dataclasses.replace(field, meta=field.meta | {"superposition": record})
 
 
 def summary(plan: base.StagePlan, field: CycleField) -> dict:
     return {"states": list(field.states), "recovery": field.meta.get("recovery", ""),
             "parts": {p: dict(f) for p, f in field.parts.items()}, "joints": dict(field.life),
             "equivalent_range_max_Pa": float(field.equivalent_range.max()),
-            "superposition": plan.prepared.get("superposition", {"used": False, "why": "each state is its own solve"})}
+            "superposition": field.meta.get("superposition", {"used": False, "why": ""})}
 
 
 def outputs(domain, field: CycleField):
@@ -152,6 +232,14 @@ def _away(rec: dict) -> str:
     return "" if rec.get("away") is None else _mpa(rec["away"])
 
 
+def _checked(record: dict) -> str:
+    check = record.get("template_check")
+    if not check:
+        return ""
+    return (f"; checked: {check['what']}, stage {check['stage']}, relative difference "
+            f"{check['relative_difference']:.1e}")
+
+
 def _count(n) -> str:
     return "no strain range" if n is None else f"{n:.3g}"
 
@@ -165,7 +253,7 @@ def report(entry, context) -> list[str]:
 
     out = [f"<p>Ranges between the states {', '.join(entry['states'])} ({entry['recovery']}); elastic analysis. "
            f"Superposition: {'used' if entry['superposition']['used'] else 'not used'} "
-           f"({entry['superposition']['why']}).</p>"]
+           f"({entry['superposition']['why']}){_checked(entry['superposition'])}.</p>"]
     out.append(table(["part", "equivalent range [MPa]", "flag", "away from features [MPa]", "between", "at [mm]",
                       "mean von Mises [MPa]",
                       "mean hydrostatic [MPa]", "von Mises range [MPa]", "largest component range [MPa]",
