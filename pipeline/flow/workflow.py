@@ -125,7 +125,7 @@ class WorkflowBase(Strict):
 
     title: str = Field(default="", description="shown in the summary and the report")
     mesh: MeshSection
-    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]")
+    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]; likewise `youngs_modulus_table`, `poisson_ratio_table`, `expansion_table` (or `_polynomial`) make E, nu, alpha depend on T, with `expansion_convention = \"instantaneous\"` (default) or `\"mean\"` from `expansion_base` [K]; `kind = \"laminate\"` with `layers = [{material, thickness, fraction, fill}, ...]` computes a board's orthotropic constants from its stack-up")
     parts: dict[str, PartSection]
     probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(
         default_factory=dict, description="named points (x, y, z) whose values every stage reports")
