@@ -63,8 +63,11 @@ def _case(tmp_path, name="cycle_restrained.toml"):
 
 def test_a_cycle_reuses_its_stored_states(tmp_path):
     path = _case(tmp_path)
-    first = runner.run(path, store=str(tmp_path / "store"), out=str(tmp_path / "out"))
+    first = runner.run(path, ["output.figures=true", "output.report=true"], store=str(tmp_path / "store"),
+                       out=str(tmp_path / "out"))
     assert first["stages"]["cycle"]["status"] == "computed"
+    assert (tmp_path / "out" / "cycle_range.png").exists() and "Ranges between the states" in \
+        (tmp_path / "out" / "report.html").read_text()
     assert first["stages"]["cycle"]["reads"] == ["cold_stress", "hot_stress"]
     again = runner.run(path, store=str(tmp_path / "store"), out=str(tmp_path / "out"))
     assert {s["status"] for s in again["stages"].values()} == {"reused"}
@@ -109,3 +112,25 @@ def test_superposed_states_need_a_template(tmp_path):
     with pytest.raises(errors.InputError) as exc:
         runner.plan(_superposition_case(tmp_path), ["stages.superposed.template=\"on\""])
     assert "stages.superposed.template" in str(exc.value) and "on_stress" in str(exc.value)
+
+
+def test_the_power_module_cycles_at_p1(tmp_path):
+    # the shipped workflow (a -40/+125 degC chamber cycle and a power cycle, and the same four states
+    # superposed), at P1 to stay fast; the P2 run is in docs and the slow suite
+    root = Path(__file__).parent.parent
+    sets = [f"stages.{s}_stress.order=1" for s in ("cold", "hot", "off", "on")] + ["output.figures=false",
+                                                                              "output.report=false"]
+    summary = runner.run(root / "workflows" / "power_module_cycles.toml", sets, store=str(tmp_path / "store"),
+                         out=str(tmp_path / "out"))
+    st = summary["stages"]
+    assert summary["status"] == "ok"
+    sweep = st["sweep"]["superposition"]
+    assert sweep["used"] and sweep["solves"] == {"heat": 1, "stress": 2}
+    assert sweep["template_check"]["relative_difference"] < 1e-8  # CG to 1e-10 relative residual
+    for part in ("solder", "substrate"):  # the superposed cold/hot pair is the direct chamber cycle
+        assert st["sweep"]["parts"][part]["equivalent_range_max_Pa"] == pytest.approx(
+            st["chamber"]["parts"][part]["equivalent_range_max_Pa"], rel=1e-7)
+    joint = st["chamber"]["joints"]["substrate_solder"]
+    assert joint["joint_temperature_range_K"] == pytest.approx(165.0, rel=1e-9)  # uniform soak, -40 to +125 degC
+    assert "qualification tests" in joint["caution"] and any("not SnPb" in x for x in joint["limits"])
+    assert (tmp_path / "out" / "chamber.vtu").exists()
