@@ -209,8 +209,8 @@ def figures(folder, name, entry, field, domain, context) -> list[dict]:
     surface = grid.extract_surface(algorithm="dataset_surface")
     shown = surface.cell_data["range"]
     clim = (float(shown.min()), float(shown.max()))
-    fig._render(path, surface, "range", "equivalent stress range [MPa]", fig.STRESS_MAP, clim,
-                f"von Mises of the stress difference between {' / '.join(field.states)} (largest pair), element means")
+    fig._render(path, surface, "range", "stress range [MPa]", fig.STRESS_MAP, clim,
+                f"equivalent stress range: von Mises of the difference between {' / '.join(field.states)} (largest pair), element means")
     return [{"file": path.name, "range": clim, "unit": "MPa"}]
 
 
