@@ -1,6 +1,6 @@
 """Stage kinds: one module per kind owns everything that is particular to it.
 
-A kind module (``heat``, ``map``, ``stress`` here; more from the ``thermochain.kinds`` entry-point
+A kind module (``heat``, ``map``, ``stress``, ``cycle`` here; more from the ``thermochain.kinds`` entry-point
 group or ``register``) defines:
 
 - ``NAME`` (the word in the workflow file, the store and the summary) and ``Schema``, its workflow
@@ -10,7 +10,8 @@ group or ``register``) defines:
 - ``plan(ctx, name, stage, where) -> StagePlan``: the Spec from the validated section, every input
   checked once (raise ``InputError`` with all problems), the key inputs;
 - ``compute(plan, upstream) -> result``: calls the pure stage function (``upstream`` is the
-  ``(result, domain)`` of its source, or None);
+  ``(result, domain)`` of its source, or None; a kind that reads several stages, like ``cycle``, gives
+  its Schema an ``upstream_names()`` method and its plan ``sources``, and receives a list in that order);
 - ``summary(plan, result) -> dict``: the figures summary.json shows for it (units in the key names);
 - ``outputs(domain, result) -> (point_data, cell_data) | None``: the arrays of its VTU file;
 - ``figures(folder, name, entry, result, domain, context) -> list[dict]``: its PNG figures;
