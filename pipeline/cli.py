@@ -171,7 +171,7 @@ def _check(args) -> int:
     if args.json:
         _print_json({"workflow": str(plan.path), "store": str(plan.store.root), "folder": str(plan.folder),
                      "mesh": plan.domain.to_dict(),
-                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source, "key": s.key,
+                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source if not s.sources else list(s.sources), "key": s.key,
                                  "reuse": decisions[s.name][0], "reason": decisions[s.name][1]} for s in plan.stages]})
         return 0
     if not args.quiet:
@@ -179,7 +179,7 @@ def _check(args) -> int:
         print(f"store: {plan.store.root}")
         for s in plan.stages:
             reuse, reason = decisions[s.name]
-            reads = f", reads {s.source}" if s.source else ""
+            reads = f", reads {', '.join(s.reads)}" if s.reads else ""
             print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
             for note in s.notices:
                 print(f"  note: {note}")

@@ -278,3 +278,48 @@ class ViewFactors:
     def __repr__(self) -> str:
         inner = ", ".join(f"{n}: {len(g.area)} patches" for n, g in self.groups.items())
         return f"<ViewFactors {inner}; patch size {self.patch_size * 1e3:g} mm>"
+
+
+@dataclass(frozen=True, repr=False)
+class CycleField:
+    """Ranges between two or more states of one structure (the ``cycle`` stage).
+
+    states: the stress stages compared, in order.  Per element (element means of each state's stress):
+    equivalent_range: max over pairs of states of von Mises(sigma_b - sigma_a) [Pa]; pair: (n, 2) the
+    states (indices into ``states``) of that largest range; von_mises_range: max - min of von Mises over
+    the states [Pa]; component_range: (n, 6) max - min of each component xx, yy, zz, yz, xz, xy [Pa];
+    mean: (n, 6) (sigma_a + sigma_b) / 2 of the governing pair [Pa]; strain_range: (n,) von Mises
+    equivalent of the mechanical (elastic) strain difference of that pair [-]; state_max, state_min:
+    (n,) the states of the largest and smallest von Mises.  parts: part -> figures from the recovered
+    nodal field of each state (``stages.cycle``).  life: per named joint, the life estimates.
+    """
+
+    states: tuple[str, ...]
+    equivalent_range: np.ndarray
+    pair: np.ndarray
+    von_mises_range: np.ndarray
+    component_range: np.ndarray
+    mean: np.ndarray
+    strain_range: np.ndarray
+    state_max: np.ndarray
+    state_min: np.ndarray
+    parts: dict[str, dict]
+    life: dict[str, dict] = field(default_factory=dict)
+    meta: dict = field(default_factory=dict)
+
+    ARRAYS = ("equivalent_range", "pair", "von_mises_range", "component_range", "mean", "strain_range",
+              "state_max", "state_min")
+
+    def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
+        meta = {"states": list(self.states), "parts": self.parts, "life": self.life, "meta": self.meta}
+        json.dumps(meta, allow_nan=False)
+        return {n: getattr(self, n) for n in self.ARRAYS}, meta
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "CycleField":
+        return cls(states=tuple(meta["states"]), parts=meta["parts"], life=meta.get("life", {}),
+                   meta=meta.get("meta", {}), **{n: np.asarray(arrays[n]) for n in cls.ARRAYS})
+
+    def __repr__(self) -> str:
+        return (f"<CycleField {' / '.join(self.states)}: {len(self.equivalent_range)} elements, equivalent range "
+                f"max {self.equivalent_range.max() / 1e6:.4g} MPa, {len(self.parts)} parts>")

@@ -90,7 +90,7 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
     for name in _order(workflow):
         stage = workflow.stages[name]
         where = f"{path}: stages.{name}"
-        if getattr(stage, "source", None) in failed:
+        if any(s in failed for s in kinds.base.upstream_names(stage)):
             failed.add(name)  # its source's problems are reported already
             continue
         try:
@@ -145,9 +145,9 @@ def _order(workflow) -> list[str]:
     def visit(name: str, seen: tuple = ()) -> None:
         if name in done or name in seen:
             return
-        source = getattr(workflow.stages[name], "source", None)
-        if source in workflow.stages:
-            visit(source, seen + (name,))
+        for source in kinds.base.upstream_names(workflow.stages[name]):
+            if source in workflow.stages:
+                visit(source, seen + (name,))
         done.append(name)
 
     for name in workflow.stages:
@@ -190,7 +190,7 @@ def _reason(s: StagePlan, hit: bool, forced: bool, previous: dict | None, change
         return f"{s.name} reused: an entry for exactly these inputs is in the store"
     if old is None:
         return f"{s.name} computed: not in the store"
-    return f"{s.name} recomputed: {_what_changed(old, s.inputs, s.source, changed)}"
+    return f"{s.name} recomputed: {_what_changed(old, s.inputs, ', '.join(s.reads) or None, changed)}"
 
 
 def _what_changed(old: dict, new: dict, source: str | None, changed: set[str]) -> str:
@@ -266,7 +266,8 @@ def _execute(p: Plan, sets, rerun, say, started):
         t0 = time.perf_counter()
         reuse, reason = plan_decisions[s.name]
         kind = kinds.get(s.kind)
-        entry = {"kind": s.kind, "key": s.key, "reads": s.source, "materials": s.materials}
+        entry = {"kind": s.kind, "key": s.key, "reads": s.source if not s.sources else list(s.sources),
+                 "materials": s.materials}
         try:
             with p.store.lock(s.kind, s.key):  # a second run waits here, then finds the entry
                 got = None if s.name in (rerun or []) else p.store.get(s.kind, s.key)
@@ -281,7 +282,8 @@ def _execute(p: Plan, sets, rerun, say, started):
                     for note in s.notices:
                         say(f"{s.name}: note: {note.message}")
                     log.info("%s: computing (%s)", s.name, s.kind)
-                    upstream = (results[s.source], domains[s.source]) if s.source else None
+                    upstream = [(results[n], domains[n]) for n in s.sources] if s.sources else \
+                        (results[s.source], domains[s.source]) if s.source else None
                     result, status = kind.compute(s, upstream), "computed"
                     arrays, meta = result.to_arrays()
                     p.store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,

@@ -33,6 +33,12 @@ class StagePlan:
     stage: object = None
     prepared: dict = field(default_factory=dict)
     notices: list = field(default_factory=list)
+    sources: tuple[str, ...] = ()  # a stage that reads several (e.g. a cycle's states); then source is None
+
+    @property
+    def reads(self) -> tuple[str, ...]:
+        """The names of the stages whose results ``compute`` receives."""
+        return self.sources or ((self.source,) if self.source else ())
 
 
 @dataclass
@@ -64,6 +70,15 @@ class OutputContext:
     limits_degC: dict[str, float]
     required_safety_factor: float
     record: dict
+
+
+def upstream_names(stage) -> list[str]:
+    """The stages a workflow section reads: its ``upstream_names()`` (several, e.g. a cycle's states) or
+    its ``source``."""
+    if hasattr(stage, "upstream_names"):
+        return stage.upstream_names()
+    source = getattr(stage, "source", None)
+    return [source] if source else []
 
 
 def workflow_file(where: str) -> str:

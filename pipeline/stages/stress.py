@@ -3,8 +3,11 @@
 Weak form: find u with the supports' constraints such that for every admissible v
     int eps(v) : C eps(u) dV + sum_spring int k u.v dA
         = int eps(v) : C alpha (T - T_ref) dV + int b.v dV + sum_pressure int -p n.v dA + sum_force int t.v dA
-Parts that share nodes are bonded; split interfaces and ties keep their sides together (``ties``).  C and alpha are constant per part (in model coordinates, from the
-part's material axes), so the thermal mismatch at a bonded interface is never averaged away.
+Parts that share nodes are bonded; split interfaces and ties keep their sides together (``ties``).  C and
+alpha are per part (in model coordinates, from the part's material axes), so the thermal mismatch at a
+bonded interface is never averaged away; with E(T), nu(T) or an expansion curve (``model.curves``) they
+are evaluated at each quadrature point from the mapped temperature, and the thermal strain is the
+curve's strain from the stress-free temperature T_ref.
 Units: u [m], sigma and p [Pa], k [N/m^3], b [N/m^3], forces [N], T [K].
 """
 
@@ -154,11 +157,20 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for part in sorted(domain.parts):
         ids = domain.parts[part]
         material = spec.materials[part]
-        c, alpha = constitutive.stiffness_matrix(material), constitutive.expansion_vector(material)
-        kernels.stiffness(space, geom, ids, c, kernels.degree_stiffness(spec.order), stiffness)
+        model = recovery.PartModel(ids, constitutive.stiffness_matrix(material),
+                                   constitutive.expansion_vector(material), material)
+        # with E(T) or nu(T) the integrands are not polynomials: one more degree per temperature order, and
+        # for an expansion curve (linear alpha(T): a strain quadratic in T) two
+        k_extra = load.order if load is not None and material.stiffness_varies else 0
+        k_degree = kernels.degree_stiffness(spec.order, k_extra)
+        kernels.stiffness(space, geom, ids, recovery.stiffness_at(domain, model, load, kernels.reference(
+            spec.order, k_degree)), k_degree, stiffness)
         if load is not None:
-            dt = recovery.temperature_rise(domain, load, ids, thermal_ref)
-            f_thermal += kernels.strain_load(space, geom, ids, np.einsum("st,t,nq->nsq", c, alpha, dt), thermal_ref)
+            curved = "expansion" in material.curves
+            ref = thermal_ref if not (k_extra or curved) else kernels.reference(
+                spec.order, spec.order - 1 + k_extra + load.order * (2 if curved else 1))
+            f_thermal += kernels.strain_load(space, geom, ids, recovery.apply(
+                recovery.stiffness_at(domain, model, load, ref), recovery.thermal_strain(domain, model, load, ref)), ref)
         b = np.zeros((len(ids), 3, len(loads_ref.weights)))
         if spec.gravity is not None:
             b += material.density * np.asarray(spec.gravity, float)[None, :, None]
@@ -166,7 +178,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
             b += np.moveaxis(spec.body_force[part](geom.points(loads_ref, ids)), 0, 1)
         if b.any():
             f_mech += kernels.vector_load(space, geom, ids, b, loads_ref)
-        per_part[part] = recovery.PartModel(ids, c, alpha, material)
+        per_part[part] = model
 
     degree = kernels.degree_mass(spec.order)
     for name, p in spec.pressure.items():

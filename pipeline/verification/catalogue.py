@@ -672,6 +672,164 @@ def plates_checks(run, h):
                   balance(f, "a", "fixed_temperature"))]
 
 # ---------------------------------------------------------------------------------------------
+# Temperature-dependent stiffness and expansion (issue 20)
+
+ASTM = "ASTM E228 (definitions of the mean and instantaneous coefficients of linear expansion, from memory)"
+CURVE_EXACT = ("uniform temperature: the strain is uniform and the displacement linear, both in the element "
+               "space; the curve's integral is exact (polynomial antiderivative): round-off only")
+
+
+def _integrated(material, t: float, t_ref: float) -> float:
+    """int_{t_ref}^{t} (c0 + c1 T) dT of an instantaneous polynomial, written out (the closed form)."""
+    c0, c1 = material.curves["expansion"].polynomial
+    return c0 * (t - t_ref) + 0.5 * c1 * (t**2 - t_ref**2)
+
+
+def _uniform(run) -> tuple[float, float]:
+    return run.workflow.stages["heat"].fixed_temperature["xmin"], run.workflow.stages["map"].reference
+
+
+def _span(s, d, lo: float, hi: float) -> float:
+    """Mean x-displacement at x = hi minus that at x = lo [m] (vertex values)."""
+    p, ux = d.points, s.displacement[: len(d.points), 0]
+    return float(ux[np.abs(p[:, 0] - hi) < 1e-9].mean() - ux[np.abs(p[:, 0] - lo) < 1e-9].mean())
+
+
+def cycle_free_checks(run, _):
+    t, t_ref = _uniform(run)
+    m, s, d = run.material("growing"), run.result("stress"), run.domain("stress")
+    strain = _integrated(m, t, t_ref)
+    e = m.youngs_modulus[0]
+    return [
+        Check("lengthening of the bar", "mm", 0.1 * strain, f"{ASTM}: L int alpha_i dT", ROUND_OFF, CURVE_EXACT,
+              _span(s, d, 0.0, 0.1)),
+        Check("largest von Mises stress", "MPa", 0.0, f"{TG}: a free body under uniform T is stress-free", ROUND_OFF,
+              CURVE_EXACT, s.parts["body"]["von_mises_max_Pa"], scale=e * strain, scale_text="E eps_th"),
+    ]
+
+
+def cycle_restrained_checks(run, _):
+    t, t_ref = _uniform(run)
+    m, s = run.material("growing"), run.result("stress")
+    rows = np.asarray(m.curves["youngs_modulus"].table)
+    e_t = float(np.interp(t, rows[:, 0], rows[:, 1]))  # the table read at T by hand
+    expected = -e_t * _integrated(m, t, t_ref)
+    return [Check("sigma_xx in every element", "MPa", expected, f"{TG}, sigma = -E(T) int alpha_i dT", ROUND_OFF,
+                  "uniform stress with E and alpha read at the uniform T: round-off only",
+                  _furthest(s.stress[:, 0], expected))]
+
+
+def cycle_conventions_checks(run, _):
+    t, t_ref = _uniform(run)
+    s, d = run.result("stress"), run.domain("stress")
+    strain = _integrated(run.material("growing"), t, t_ref)
+    e = run.material("growing").youngs_modulus[0]
+    return [
+        Check("lengthening of the instantaneous half", "mm", 0.05 * strain, f"{ASTM}: L int alpha_i dT", ROUND_OFF,
+              CURVE_EXACT, _span(s, d, 0.0, 0.05)),
+        Check("lengthening of the mean half", "mm", 0.05 * strain,
+              f"{ASTM}: L (alpha_m(T) (T - T_0) - alpha_m(T_ref) (T_ref - T_0))", ROUND_OFF, CURVE_EXACT,
+              _span(s, d, 0.05, 0.1)),
+        Check("largest von Mises stress (no mismatch between the halves)", "MPa", 0.0,
+              "equal strains by the conversion: bonded halves stay stress-free", ROUND_OFF, CURVE_EXACT,
+              max(f["von_mises_max_Pa"] for f in s.parts.values()), scale=e * strain, scale_text="E eps_th"),
+    ]
+
+
+def conventions_mesh(work, _):
+    mk.box(work / "bar.msh", mk.planes(0, 0.1, 4), mk.planes(0, 0.02, 2), mk.planes(0, 0.02, 2), jitter=0.2,
+           parts={"tangent": (0, 0, 0.05), "secant": (0, 0.05, 0.1)})
+
+
+def _table_integral(rows, t: float, t_ref: float) -> float:
+    """int_{t_ref}^{t} of the piecewise-linear table, by the trapezoid rule on the nodes inside plus the
+    two partial segments (exact for a piecewise-linear function); t_ref and t inside the table."""
+    ts, vs = np.asarray(rows)[:, 0], np.asarray(rows)[:, 1]
+    grid = np.unique(np.concatenate([[t_ref, t], ts[(ts > t_ref) & (ts < t)]]))
+    values = np.interp(grid, ts, vs)
+    return float(np.sum(0.5 * (values[1:] + values[:-1]) * np.diff(grid)))
+
+
+def cycle_strip_checks(run, n):
+    s, d = run.result("stress"), run.domain("stress")
+    t, t_ref = _uniform(run)
+    low, high = run.material("low"), run.material("high")
+    mismatch = _table_integral(high.curves["expansion"].table, t, t_ref) - \
+        _table_integral(low.curves["expansion"].table, t, t_ref)
+    L, th, w = 0.06, 1e-3, 3e-3
+    kappa = 3 * mismatch / (2 * 2 * th)
+    p = d.points
+    uz = s.displacement[: len(p), 2]
+    mid = (np.abs(p[:, 2] - th) < 1e-9) & (np.abs(p[:, 1] - w / 2) < 1e-9) & (p[:, 0] > 0.2 * L) & (p[:, 0] < 0.8 * L)
+    curvature = -2 * np.polyfit(p[mid, 0], uz[mid], 2)[0]
+    return [Check("curvature of the mid-plane (middle 60 %)", "1/m", kappa,
+                  "S. Timoshenko, Analysis of bi-metal thermostats, J. Opt. Soc. Am. 11(3), 1925: 1/rho = 3 d_eps / "
+                  "(2h) for equal layers, d_eps = int (alpha_2 - alpha_1) dT", 1e-2,
+                  "as stress_bimetal (same mesh and element): discretisation and free-end effects, 1 %", float(curvature))]
+
+
+# ---------------------------------------------------------------------------------------------
+
+def cycle_range_checks(run, _):
+    w, m, c = run.workflow, run.material("aluminium"), run.result("cycle")
+    dt = w.stages["heat"].fixed_temperature["xmin"] - w.stages["cold"].fixed_temperature["xmin"]
+    expected = m.youngs_modulus[0] * m.expansion[0] * dt
+    src = f"{TG}: sigma = -E alpha dT in each state, so the range is E alpha (T_hot - T_cold)"
+    why = "uniform stress in each state lies in the element space: round-off only"
+    return [Check("range of sigma_xx, every element", "MPa", expected, src, ROUND_OFF, why,
+                  _furthest(c.component_range[:, 0], expected)),
+            Check("equivalent stress range, every element", "MPa", expected, src + " (uniaxial)", ROUND_OFF, why,
+                  _furthest(c.equivalent_range, expected)),
+            Check("equivalent range of the part (recovered field)", "MPa", expected, src, ROUND_OFF, why,
+                  c.parts["body"]["equivalent_range_max_Pa"])]
+
+
+def cycle_laminate_checks(run, _):
+    from ..model import materials
+
+    library = materials.library()  # the layers are library materials
+    cu, al = library["copper_c11000"], library["alumina_96"]
+    layers = [(1e-3, cu), (2e-3, al)]
+    t = sum(h for h, _ in layers)
+    k_in = sum(h * m.conductivity[0] for h, m in layers) / t
+    k_z = t / sum(h / m.conductivity[0] for h, m in layers)
+    biaxial = [(h, m.youngs_modulus[0] / (1 - m.poisson_ratio[0]), m.expansion[0], m.poisson_ratio[0]) for h, m in layers]
+    a_in = sum(h * b * a for h, b, a, _ in biaxial) / sum(h * b for h, b, _, _ in biaxial)
+    a_z = sum(h * (a + 2 * nu / (1 - nu) * (a - a_in)) for h, _, a, nu in biaxial) / t
+    w, s, d = run.workflow, run.result("stress"), run.domain("stress")
+    dt = w.stages["heat"].fixed_temperature["xmin"] - w.stages["map"].reference
+    src_k = "Incropera et al. 6th ed., sec. 3.1 (composite walls), from memory"
+    src_a = "R.M. Jones, Mechanics of Composite Materials, 2nd ed., ch. 4 (laminate expansion), from memory"
+    why = "linear field in the element space: round-off only"
+    drop = {n: w.stages[n].fixed_temperature for n in ("along", "through")}
+    p, uz = d.points, s.displacement[: len(d.points), 2]
+    rise_z = float(uz[np.abs(p[:, 2] - 0.02) < 1e-9].mean() - uz[np.abs(p[:, 2]) < 1e-9].mean())
+    return [
+        Check("heat in along the layers (parallel)", "W",
+              k_in * 0.02 * 0.02 * (drop["along"]["xmin"] - drop["along"]["xmax"]) / 0.1, src_k, ROUND_OFF, why,
+              balance(run.result("along"), "xmin")),
+        Check("heat in through the layers (series)", "W",
+              k_z * 0.1 * 0.02 * (drop["through"]["zmin"] - drop["through"]["zmax"]) / 0.02, src_k, ROUND_OFF, why,
+              balance(run.result("through"), "zmin")),
+        Check("lengthening in the plane (stiffness-weighted alpha)", "mm", a_in * dt * 0.1, src_a, ROUND_OFF, why,
+              _span(s, d, 0.0, 0.1)),
+        Check("thickening through the layers", "mm", a_z * dt * 0.02, src_a, ROUND_OFF, why, rise_z),
+    ]
+
+
+def cycle_superposition_checks(run, _):
+    direct, superposed = run.result("direct"), run.result("superposed")
+    scale = float(direct.equivalent_range.max())
+    src = "superposition of linear problems (Timoshenko and Goodier, 3rd ed., sec. 1.3; from memory)"
+    why = ("direct sparse solves of a linear chain: the two routes differ by round-off only; 1e-10 relative "
+           "as the issue asks (measured about 1e-13)")
+    check = run.record["stages"]["superposed"]["superposition"]["template_check"]["relative_difference"]
+    return [Check("equivalent range, superposed - direct (largest over elements)", "MPa", 0.0, src, 1e-10, why,
+                  float(np.abs(superposed.equivalent_range - direct.equivalent_range).max()), scale=scale,
+                  scale_text="the largest range"),
+            Check("template's loads superposed vs its direct solve", "-", 0.0, src, 1e-10, why, check, scale=1.0,
+                  scale_text="relative already")]
+
 
 def _case(name, title, workflow, prepare, checks, levels=SAME, note=""):
     return Case(name, title, dict(levels), checks, workflow, prepare, note)
@@ -750,6 +908,21 @@ CASES = {c.name: c for c in [
                "(a CSV file written at run time), so the P2 load is the prescribed field. Quarter model; Gmsh "
                "meshes h = 0.1 m (quick, default) and 0.07 m (fine), shipped in pipeline/verification/cases/meshes "
                "(made by cases/le11/make_mesh.py)."),
+    _case("cycle_bar_free", "free bar, instantaneous alpha(T): L int alpha dT", "cycle_bar_free.toml", bar_mesh,
+          cycle_free_checks),
+    _case("cycle_bar_restrained", "restrained bar, E(T) table and alpha(T)", "cycle_bar_restrained.toml", bar_mesh,
+          cycle_restrained_checks),
+    _case("cycle_conventions", "mean and instantaneous expansion conventions give the same strain",
+          "cycle_conventions.toml", conventions_mesh, cycle_conventions_checks),
+    _case("cycle_strip", "bimetallic strip, alpha(T) tables: integrated mismatch (P2)", "cycle_strip.toml",
+          bimetal_mesh, cycle_strip_checks, SIZES(20, 60, 60),
+          note="Mesh as stress_bimetal; the expansion tables have a knee inside the temperature range."),
+    _case("cycle_restrained", "restrained bar cycled between two temperatures: range E alpha dT",
+          "cycle_restrained.toml", bar_mesh, cycle_range_checks),
+    _case("cycle_laminate", "laminate of two isotropic layers: effective k and alpha from the stack-up",
+          "cycle_laminate.toml", bar_mesh, cycle_laminate_checks),
+    _case("cycle_superposition", "superposed states against direct solves on a linear chain",
+          "cycle_superposition.toml", bimetal_mesh, cycle_superposition_checks, SIZES(20, 20, 20)),
     *manufactured.CASES,
     *transient_cases.CASES,
 ]}
