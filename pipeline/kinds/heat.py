@@ -78,11 +78,9 @@ class HeatStage(Strict):
     adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
                                  "planes, insulation): not warned about")
 
-
-    @property
-    def source(self) -> str | None:
-        """The stage this one reads (its view factors)."""
-        return self.view
+    def upstream_names(self) -> list[str]:
+        """The stages this one reads: its view factors' stage."""
+        return [self.view] if self.view else []
 
 
 Schema = HeatStage
@@ -197,7 +195,7 @@ def _conductivity_notices(plan: base.StagePlan, field: TemperatureField) -> list
     """A temperature-dependent conductivity that is not positive somewhere in its part's solved temperature
     range: the field there is not physical (heat would flow from cold to hot)."""
     out = []
-    for part, material in sorted(plan.spec.materials.items()):
+    for part, material in sorted(getattr(plan.spec, "materials", {}).items()):  # an instant's spec has none
         if not material.conductivity_varies or part not in field.parts:
             continue
         low, high = field.parts[part]["min"], field.parts[part]["max"]

@@ -97,6 +97,10 @@ class TransientStage(heat_kind.HeatStage):
                                                "max(a) - min(b) is tracked and its field kept")
     impedance: ImpedanceSection | None = Field(default=None, description="Z_th(t) of the power step and its Foster network")
 
+    def upstream_names(self) -> list[str]:
+        """The stages this one reads: the steady heat stage of its initial field and its view factors' stage."""
+        return [n for n in (self.source, self.view) if n]
+
 
 Schema = TransientStage
 
