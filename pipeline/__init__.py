@@ -69,7 +69,7 @@ def run(workflow, set: list[str] | None = None, store: str | None = None, out: s
     set : list of str, optional
         ``KEY.PATH=VALUE`` overrides, as ``thermochain run --set``.
     store : str, optional
-        Stage store folder (default: ``$THERMOCHAIN_STORE`` or ``.thermochain-store`` beside the workflow).
+        Stage store folder (default: ``$THERMOCHAIN_STORE``, else the user's cache folder: ``flow.store.root``).
     out : str, optional
         Results folder (default: the workflow's ``output.folder``).
     rerun : list of str, optional

@@ -1,6 +1,7 @@
 """The ``thermochain`` command: subcommands, logging and exit codes; no logic beyond wiring.
 
-Exit status: 0 success, 2 bad input (workflow, mesh, names, values), 1 a run that failed.
+Exit status: 0 success, 2 bad input (workflow, mesh, names, values), 1 a run that failed; with
+``run --check-verdict``, 3 when the run succeeded but a stress verdict is 'fail' (VERDICT_FAILED).
 """
 
 from __future__ import annotations
@@ -31,17 +32,28 @@ def _parser() -> argparse.ArgumentParser:
                          help="override a value by its key path, e.g. stages.heat.power.chip=3.0")
         cmd.add_argument("--rerun", action="append", default=[], metavar="STAGE", help="compute STAGE even if stored")
         cmd.add_argument("--out", help="results folder (default: the workflow's output.folder)")
-        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or "
-                                         ".thermochain-store beside the workflow)")
+        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE, else the user's cache "
+                                         "folder; `thermochain store` shows it)")
+        if name == "run":
+            cmd.add_argument("--check-verdict", action="store_true",
+                             help=f"exit with status {VERDICT_FAILED} when a stress stage's verdict is 'fail' "
+                                  "(a part below the required safety factor); the run itself is kept")
     check = sub.choices["check"]
     check.add_argument("--json", action="store_true", help="print the plan as JSON")
     _command(sub, "schema", "print the JSON Schema of workflow files")
     rep = _command(sub, "report", "rebuild the figures and report.html of a results folder, without solving")
     rep.add_argument("folder")
     rep.add_argument("--store", help="stage store folder (default: the one the run used)")
+    cmp = _command(sub, "compare", "compare two results folders: inputs changed, per-part results side by side, "
+                                   "which fields and figures differ; writes compare.html and compare.csv")
+    cmp.add_argument("a", metavar="RESULTS_A")
+    cmp.add_argument("b", metavar="RESULTS_B")
+    cmp.add_argument("--out", default="results/compare", help="folder for compare.html, compare.csv and the "
+                                                              "difference figures (default: results/compare)")
     st = _command(sub, "store", "list the stage store's entries, or remove old ones")
     st.add_argument("--json", action="store_true", help="print the entries as JSON")
-    st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE or .thermochain-store)")
+    st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE, else the user's "
+                                              "cache folder, as for every command)")
     st.add_argument("--clean", type=float, metavar="DAYS", help="remove entries not used for DAYS days")
     mats = _command(sub, "materials", "list the material library with units and sources")
     mats.add_argument("--json", action="store_true", help="print every property with its unit and source as JSON")
@@ -62,6 +74,7 @@ EXAMPLES = {
     "check": "example:\n  thermochain check workflows/housing_magnesium.toml   # which stages would rerun, and why",
     "schema": "example:\n  thermochain schema > workflow.schema.json   # for an editor's TOML/JSON validation",
     "report": "example:\n  thermochain report results/housing",
+    "compare": "example:\n  thermochain compare results/housing results/housing_magnesium --out results/compare",
     "store": "examples:\n  thermochain store --json\n  thermochain store .thermochain-store --clean 30",
     "materials": "examples:\n  thermochain materials fr4\n  thermochain materials --file my_materials.toml --json",
     "mesh": "example:\n  thermochain mesh cases/housing/housing_coarse.msh --unit mm",
@@ -86,8 +99,8 @@ def _study_parsers(sub) -> None:
         cmd.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                          help="override a value for every run, e.g. stages.heat.power.chip=3.0")
         cmd.add_argument("--out", help="study folder (default: the workflow's output.folder + _sweep / _convergence)")
-        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE or .thermochain-store "
-                                         "beside the workflow)")
+        cmd.add_argument("--store", help="stage store folder (default: $THERMOCHAIN_STORE, else the user's cache "
+                                         "folder)")
     sw.add_argument("--sweep", metavar="FILE", help="sweep definition file (default: the workflow's [sweep] table)")
     sw.add_argument("--scheduler", metavar="ADDRESS", help="run on this Dask scheduler, e.g. tcp://host:8786 "
                                                             "(default: a local cluster)")
@@ -126,6 +139,10 @@ def main(argv: list[str] | None = None) -> int:
         return 130
 
 
+#: exit status of ``run --check-verdict`` when the computation succeeded and a verdict failed
+VERDICT_FAILED = 3
+
+
 def _run(args) -> int:
     from .flow import runner
 
@@ -140,6 +157,10 @@ def _run(args) -> int:
     record = runner.run(args.workflow, args.set, args.store, args.out, args.rerun, progress=progress)
     if not args.quiet:
         _print_run(record)
+    failing = [name for name, st in record["stages"].items() if st.get("verdict", {}).get("verdict") == "fail"]
+    if getattr(args, "check_verdict", False) and failing:
+        print(f"thermochain: verdict fail in {', '.join(failing)} (--check-verdict)", file=sys.stderr)
+        return VERDICT_FAILED
     return 0
 
 
@@ -150,7 +171,7 @@ def _check(args) -> int:
     if args.json:
         _print_json({"workflow": str(plan.path), "store": str(plan.store.root), "folder": str(plan.folder),
                      "mesh": plan.domain.to_dict(),
-                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source, "key": s.key,
+                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source if not s.sources else list(s.sources), "key": s.key,
                                  "reuse": decisions[s.name][0], "reason": decisions[s.name][1]} for s in plan.stages]})
         return 0
     if not args.quiet:
@@ -158,10 +179,21 @@ def _check(args) -> int:
         print(f"store: {plan.store.root}")
         for s in plan.stages:
             reuse, reason = decisions[s.name]
-            reads = f", reads {s.source}" if s.source else ""
+            reads = f", reads {', '.join(s.reads)}" if s.reads else ""
             print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
             for note in s.notices:
                 print(f"  note: {note}")
+    return 0
+
+
+def _compare(args) -> int:
+    from .outputs import compare
+
+    record = compare.run(args.a, args.b, args.out)
+    if not args.quiet:
+        for line in record["statements"]:
+            print(line)
+        print(f"comparison: {Path(args.out) / 'compare.html'}")
     return 0
 
 
@@ -184,27 +216,37 @@ def _schema(args) -> int:
 
 
 def _store(args) -> int:
-    import os
+    import math
     import time
-    from pathlib import Path
 
     from .flow import store
 
-    root = Path(args.folder or os.environ.get(store.ENV) or ".thermochain-store")
-    s = store.Store(root)
+    s = store.Store(store.root(args.folder))
     if args.clean is not None:
-        removed = s.clean(args.clean)
-        print(f"removed {len(removed)} entries from {root}")
+        if not math.isfinite(args.clean) or args.clean < 0:
+            raise errors.InputError(f"--clean {args.clean:g}: give the age in days as a number >= 0")
+        done = s.clean(args.clean)
+        print(f"removed {len(done.removed)} entries and {len(done.leftovers)} leftovers of interrupted writes "
+              f"from {s.root}")
+        for e in done.removed:
+            print(f"  removed {e.kind} {e.key[:16]}")
+        for path, why in done.kept:
+            print(f"  kept {path.relative_to(s.root)}: {why}")
+        return 0
+    if s.root.exists() and not s.is_store():
+        print(f"{s.root} is not a thermochain store (no {store.MARKER}): 0 entries")
         return 0
     entries = s.entries()
     if args.json:
-        _print_json({"store": str(root), "entries": [{"kind": e.kind, "key": e.key, "bytes": e.size,
-                                                       "last_used": e.last_used} for e in entries]})
+        _print_json({"store": str(s.root), "entries": [{"kind": e.kind, "key": e.key, "bytes": e.size,
+                                                         "last_used": e.last_used, "problem": e.problem}
+                                                        for e in entries]})
         return 0
     for e in entries:
         age = (time.time() - e.last_used) / 86400
-        print(f"{e.kind:<7} {e.key[:16]}  {e.size / 1e6:9.3f} MB  last used {age:6.1f} days ago")
-    print(f"{len(entries)} entries, {sum(e.size for e in entries) / 1e6:.3f} MB in {root}")
+        damaged = f"  ({e.problem})" if e.problem else ""
+        print(f"{e.kind:<7} {e.key[:16]}  {e.size / 1e6:9.3f} MB  last used {age:6.1f} days ago{damaged}")
+    print(f"{len(entries)} entries, {sum(e.size for e in entries) / 1e6:.3f} MB in {s.root}")
     return 0
 
 
@@ -219,7 +261,8 @@ def _materials(args) -> int:
         chosen = [lib[args.name]] if args.name else [lib[n] for n in lib]
         _print_json({"materials": [m.to_dict() for m in chosen]})
         return 0
-    console = Console(width=None if sys.stdout.isatty() else 160)
+    # text from material files is printed literally: no rich markup, emoji codes or highlighting in it
+    console = Console(width=None if sys.stdout.isatty() else 160, markup=False, emoji=False, highlight=False)
     if args.name:
         m = lib[args.name]
         table = Table(title=f"{m.name}: {m.title} ({m.kind})")
@@ -273,7 +316,11 @@ def _fmt(value) -> str:
 def _print_run(record: dict) -> None:
     from . import kinds
 
+    from .outputs import verdict
+
     print(f"thermochain {record['thermochain']}: {record['workflow']} ({record['status']}, {record['seconds']:.1f} s)")
+    if record.get("verdict"):
+        print("verdict:\n" + verdict.text(record["verdict"]))
     for name, stage in record["stages"].items():
         print(f"stage {name} ({stage['kind']}): {stage['status']} - {stage['reason']}")
         for line in kinds.hook(stage["kind"], "console")(stage):
@@ -288,7 +335,7 @@ def _print_run(record: dict) -> None:
 
 
 COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh, "schema": _schema,
-            "store": _store, "report": _report}
+            "store": _store, "report": _report, "compare": _compare}
 COMMANDS |= {"sweep": lambda args: _study("sweep", args), "converge": lambda args: _study("converge", args)}
 
 

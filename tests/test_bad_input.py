@@ -10,6 +10,7 @@ The base model is a small invented two-part box (loads made up for the test).
 from __future__ import annotations
 
 import hashlib
+import os
 import re
 import subprocess
 import sys
@@ -94,6 +95,11 @@ def tree(root: Path) -> dict[str, str]:
             for p in sorted(root.rglob("*")) if p.is_file()}
 
 
+def visible(state: dict[str, str]) -> dict[str, str]:
+    """The entries and the marker of a store's state, without its hidden files (locks, writes in progress)."""
+    return {k: v for k, v in state.items() if not any(part.startswith(".") for part in Path(k).parts)}
+
+
 @pytest.fixture(scope="module")
 def filled_store(tmp_path_factory):
     """A store holding the three entries of a clean run of the base workflow."""
@@ -119,10 +125,33 @@ class Case:
     files: dict = field(default_factory=dict)
     named: str = "workflow"
     lines: int = 1
+    sets: list[str] = field(default_factory=list)  # --set options of the run
+    out: bool = True  # give --out (False: the workflow's own output.folder is the results folder)
+    setup: object = None  # a function of the case folder that writes further files
 
 
 def replace(old: str, new: str) -> tuple[str, str]:
     return (old, new)
+
+
+def _field(folder: Path, name: str = "field.csv", shift_mm: float = 0.0, bad_row: str | None = None) -> None:
+    """A temperature field on a 1 mm grid over the base box (CSV x, y, z [mm], T [K]; invented values),
+    moved by ``shift_mm`` in x, with one row replaced by ``bad_row``."""
+    g = np.arange(0.0, 10.5, 1.0)
+    x, y, z = (a.ravel() for a in np.meshgrid(g, g, np.arange(0.0, 6.5, 1.0), indexing="ij"))
+    rows = [f"{a + shift_mm:g},{b:g},{c:g},{300 + 2 * c:g}" for a, b, c in zip(x, y, z)]
+    if bad_row is not None:
+        rows[37] = bad_row
+    (folder / name).write_text("x,y,z,T\n" + "\n".join(rows) + "\n")
+
+
+def _vtu_field(folder: Path) -> None:
+    """The base mesh as a VTU file with point temperatures, one of them NaN."""
+    m = box()
+    t = 300.0 + m.points[:, 2]
+    t[7] = np.nan
+    meshio.write(folder / "field.vtu", meshio.Mesh(m.points, [c for c in m.cells if c.type == "tetra"],
+                                                   point_data={"T": t}))
 
 
 CASES = {
@@ -204,9 +233,9 @@ CASES = {
          replace('material = "aluminium_6061_t6"', 'material = "mine"')],
         [r"material 'mine'", r"poisson_ratio must lie in \(-1, 0\.5\)", "0.7"]),
     "emissivity_above_one": Case([replace("emissivity = 0.8", "emissivity = 1.2")],
-                                 [r"stages\.heat\.radiation\.sides\.emissivity", "a number in 0\.\.1 or a finish name", "paint", "got 1\.2"]),
+                                 [r"stages\.heat\.radiation\.sides\.emissivity", r"a number in 0\.\.1 or a finish name", "paint", r"got 1\.2"]),
     "emissivity_negative": Case([replace("emissivity = 0.8", "emissivity = -0.1")],
-                                [r"stages\.heat\.radiation\.sides\.emissivity", "a number in 0\.\.1 or a finish name", "got -0\.1"]),
+                                [r"stages\.heat\.radiation\.sides\.emissivity", r"a number in 0\.\.1 or a finish name", r"got -0\.1"]),
     "emissivity_unknown_finish": Case([replace("emissivity = 0.8", 'emissivity = "paint_white"')],
                                       [r"stages\.heat\.radiation\.sides\.emissivity", "finish 'paint_white'",
                                        "did you mean 'paint'"]),
@@ -244,7 +273,102 @@ CASES = {
                                   [r"stages\.heat\.power", "part 'uper' does not exist", "did you mean 'upper'"]),
     "unknown_support_kind": Case([replace('{ kind = "fixed" }', '{ kind = "glued" }')],
                                  [r"stages\.stress\.supports\.bottom\.kind", "'fixed'", "'minimal'"]),
+    # ---- names that become file names, values beyond plausibility, hints (issue 22) ----------------------
+    "stage_name_climbs_out_of_the_results_folder": Case(
+        [replace("[stages.stress]", '[stages."../../escaped_stress"]')],
+        [r"stages\.'\.\./\.\./escaped_stress'", "becomes part of file names", "plain name", "'escaped_stress'"]),
+    "stage_name_is_an_absolute_path": Case(
+        [replace("[stages.stress]", '[stages."/tmp/elsewhere/stress"]')],
+        [r"stages\.'/tmp/elsewhere/stress'", "plain name", "'tmp_elsewhere_stress'"]),
+    "stage_name_with_a_nul_byte": Case([replace("[stages.stress]", '[stages."stre\\u0000ss"]')],
+                                       [r"stages\.'stre\\x00ss'", "plain name", "'stre_ss'"]),
+    "stage_name_reserved_by_windows": Case([replace("[stages.stress]", "[stages.nul]")],
+                                           [r"stages\.'nul'", "plain name"]),
+    "probe_name_with_a_folder_separator": Case([replace("centre = [", '"sub/centre" = [')],
+                                               [r"probes\.'sub/centre'", "plain name", "'sub_centre'"]),
+    "temperature_in_coulomb": Case([replace('ambient = "25 degC"', 'ambient = "25 C"')],
+                                   [r"stages\.heat\.convection\.top\.ambient", "not a temperature unit",
+                                    "did you mean '25 degC'"]),
+    "temperature_in_fahrenheit_as_farad": Case([replace('ambient = "25 degC"', 'ambient = "77 F"')],
+                                               [r"stages\.heat\.convection\.top\.ambient", "did you mean '77 degF'"]),
+    "temperature_implausibly_high": Case([replace('ambient = "25 degC"', "ambient = 1e300")],
+                                         [r"stages\.heat\.convection\.top\.ambient", "beyond any plausible value",
+                                          "100000 K"]),
+    "power_implausibly_large": Case([replace('upper = "0.5 W"', "upper = 1e300")],
+                                    [r"stages\.heat\.power\.upper", "beyond any plausible value", "1e\+09 W"]),
+    "set_value_is_blamed_on_the_set_option": Case(sets=["stages.heat.order=3"],
+                                                  expect=[r"^--set stages\.heat\.order=3 \(over ", r"stages\.heat\.order",
+                                                          "1 or 2"]),
+    "set_table_value_is_blamed_on_the_set_option": Case(
+        sets=['stages.heat.power={ upper = "0.5 m" }'],
+        expect=[r"^--set stages\.heat\.power=\{ upper = \"0\.5 m\" \}", r"stages\.heat\.power\.upper", "not a unit of W"]),
+    "extends_chain_too_deep": Case([replace('title = "catalogue', 'extends = "e0.toml"\ntitle = "catalogue')],
+                                   ["'extends' chain is more than 32 files deep"],
+                                   setup=lambda folder: [(folder / f"e{i}.toml").write_text(f'extends = "e{i + 1}.toml"\n')
+                                                         for i in range(1200)]),
+    "extends_names_a_huge_file": Case([replace('title = "catalogue', 'extends = "huge.toml"\ntitle = "catalogue')],
+                                      ["refused unread", r"2048\.0 MiB", "at most 1024 KiB"], named="huge.toml",
+                                      setup=lambda folder: os.truncate(_touch(folder / "huge.toml"), 2 << 30)),
+    "orthotropic_compliance_not_positive_definite": Case(
+        [replace("[parts]", '[materials.mine]\nkind = "orthotropic"\nconductivity = [1.0, 1.0, 0.3]\n'
+                 "youngs_modulus = [20e9, 20e9, 10e9]\npoisson_ratio = [0.9, 0.8, 0.8]\n"
+                 "shear_modulus = [5e9, 4e9, 4e9]\nexpansion = [14e-6, 14e-6, 60e-6]\ndensity = 1900.0\n\n[parts]"),
+         replace('material = "fr4"', 'material = "mine"')],
+        [r"material 'mine'", "not positive definite", "no such material exists", r"\|nu_xy\| < 1"]),
+    "conductivity_polynomial_negative_in_its_range": Case(
+        [replace("[parts]", "[materials.mine]\nconductivity = 100.0\nconductivity_polynomial = [100.0, -0.5]\n"
+                 "valid_from = 150.0\nvalid_to = 400.0\nyoungs_modulus = 70e9\npoisson_ratio = 0.3\n"
+                 "expansion = 23e-6\ndensity = 2700.0\n\n[parts]"),
+         replace('material = "aluminium_6061_t6"', 'material = "mine"')],
+        [r"material 'mine'", r"falls to -100 W/\(m\*K\) at 400\.0 K", "150..400 K", "must stay positive"]),
+    "field_file_with_a_nan_temperature": Case(
+        [replace('source = "heat"\nreference', 'file = "field.csv"\nfile_unit = "mm"\nreference')], [r"field\.csv: 1 of 847 points have a coordinate or temperature that is not a finite number",
+                 "points 38 "], named="field.csv", setup=lambda folder: _field(folder, bad_row="1,2,3,nan")),
+    "field_file_with_a_text_row": Case(
+        [replace('source = "heat"\nreference', 'file = "field.csv"\nfile_unit = "mm"\nreference')], [r"field\.csv:39: expected four numbers x, y, z, T"], named="field.csv",
+        setup=lambda folder: _field(folder, bad_row="1,2,three,300")),
+    "field_file_far_from_the_model": Case(
+        [replace('source = "heat"\nreference', 'file = "field.csv"\nfile_unit = "mm"\nreference')], [r"stages\.strain: .* structural points lie outside", "same length unit and position"],
+        setup=lambda folder: _field(folder, shift_mm=50.0)),
+    "field_vtu_with_a_nan_temperature": Case(
+        [replace('source = "heat"\nreference', 'file = "field.vtu"\narray = "T"\nfile_unit = "mm"\nreference')],
+        [r"field\.vtu: 1 of 175 points have a coordinate or temperature that is not a finite number"],
+        named="field.vtu", setup=_vtu_field),
+    "reference_by_part_names_a_missing_part": Case(
+        [replace('reference = "25 degC"', 'reference = "25 degC"\nreference_by_part = { uper = "30 degC" }')],
+        [r"stages\.strain\.reference_by_part", "part 'uper' does not exist", "did you mean 'upper'"]),
+    "radiation_with_emissivity_zero_is_the_only_way_out": Case(
+        [replace('fixed_temperature = { bottom = "40 degC" }', ""),
+         replace('[stages.heat.convection.top]\nfilm_coefficient = "10 W/(m^2*K)"\nambient = "25 degC"\n', ""),
+         replace("emissivity = 0.8", "emissivity = 0.0")],
+        [r"stages\.heat", "receive power \\(upper\\)", "radiation with emissivity > 0", "no steady state"]),
+    "pressure_on_a_surface_inside_the_body": Case(
+        [replace('supports = { bottom = { kind = "fixed" } }', 'supports = { bottom = { kind = "fixed" } }\n'
+                 'pressure = { middle = "1 MPa" }')],
+        [r"stages\.stress\.pressure", "surface 'middle' has 32 facets inside the body", "boundary surface"]),
+    "output_folder_is_the_root": Case([replace('folder = "results"', 'folder = "/"')],
+                                      [r"output\.folder: / is the root of the file system", "a folder of its own"],
+                                      out=False),
+    "output_folder_is_a_system_folder": Case([replace('folder = "results"', 'folder = "/etc/thermochain"')],
+                                             [r"output\.folder: /etc/thermochain is a system folder"], out=False),
+    "output_folder_is_an_existing_file": Case([replace('folder = "results"', 'folder = "box.msh/results"')],
+                                              [r"output\.folder: .*box\.msh is an existing file, not a folder"],
+                                              out=False),
+    "output_folder_holds_a_foreign_summary": Case(
+        [replace('folder = "results"', 'folder = "theirs"')],
+        [r"output\.folder: .*theirs holds a summary\.json that is not a thermochain run's", "new or empty folder"],
+        out=False, setup=lambda folder: (folder / "theirs").mkdir() or (folder / "theirs" / "summary.json").write_text(
+            '{"total": 3, "items": []}')),
+    "output_folder_holds_other_files": Case(
+        [replace('folder = "results"', 'folder = "."')],
+        [r"output\.folder: .* holds files no run writes \(box\.msh, workflow\.toml\)"], out=False),
     # ---- the mesh ----------------------------------------------------------------------------------------
+    "mesh_node_tags_near_2e9": Case([replace('file = "box.msh"', 'file = "tags.msh"')],
+                                    [r"node tags go up to 2000000174 for 175 nodes", "GiB", "renumber"],
+                                    files={"tags.msh": "renumbered"}, named="tags.msh"),
+    "mesh_with_a_nan_coordinate": Case([replace('file = "box.msh"', 'file = "nan.msh"')],
+                                       ["1 node has coordinates that are not finite", "NaN"],
+                                       files={"nan.msh": "nan"}, named="nan.msh"),
     "mesh_file_missing": Case([replace('file = "box.msh"', 'file = "bx.msh"')],
                               [r"bx\.msh", "mesh file not found"]),
     "mesh_file_unreadable": Case([replace('file = "box.msh"', 'file = "broken.msh"')],
@@ -327,10 +451,39 @@ def broken_mesh(kind: str, path: Path) -> None:
                 for k, v in m.cell_data.items()}
         m = meshio.Mesh(m.points, cells, cell_data=data, field_data=m.field_data)
     meshes.write_gmsh(m, path, binary=False)
+    if kind == "renumbered":  # node tags near 2e9 (a mesh exported from a larger model without renumbering)
+        path.write_text(_renumbered(path.read_text(), 2_000_000_000 - 1))
+    elif kind == "nan":  # one node of a tetrahedron without a coordinate
+        lines = path.read_text().splitlines()
+        at = lines.index("$Nodes") + 3
+        lines[at] = " ".join(lines[at].split()[:1] + ["nan"] + lines[at].split()[2:])
+        path.write_text("\n".join(lines) + "\n")
     if kind == "duplicate":  # rename the surface group "sides" to "top" in the file
         path.write_text(path.read_text().replace('"sides"', '"top"'))
     elif kind == "clash":
         path.write_text(path.read_text().replace('"middle"', '"upper"'))
+
+
+def _renumbered(text: str, offset: int) -> str:
+    """A Gmsh 2.2 ASCII file with every node tag (in $Nodes and in the elements) increased by ``offset``."""
+    lines, out, section = text.splitlines(), [], None
+    for line in lines:
+        fields = line.split()
+        if line.startswith("$"):
+            section = line if not line.startswith("$End") else None
+        elif section == "$Nodes" and len(fields) == 4:
+            fields[0] = str(int(fields[0]) + offset)
+            line = " ".join(fields)
+        elif section == "$Elements" and len(fields) > 3:
+            head = 3 + int(fields[2])
+            line = " ".join(fields[:head] + [str(int(f) + offset) for f in fields[head:]])
+        out.append(line)
+    return "\n".join(out) + "\n"
+
+
+def _touch(path: Path) -> Path:
+    path.write_bytes(b"")
+    return path
 
 
 def setup_case(case: Case, folder: Path) -> Path:
@@ -345,6 +498,8 @@ def setup_case(case: Case, folder: Path) -> Path:
             broken_mesh({"garbage": "garbage"}.get(content, content), folder / name)
         else:
             (folder / name).write_text(content)
+    if case.setup is not None:
+        case.setup(folder)
     path = folder / "workflow.toml"
     path.write_text(text)
     return path
@@ -373,12 +528,15 @@ def test_bad_input_is_refused_clearly_and_leaves_the_store_as_it_was(name, tmp_p
     store, state = filled_store
     path = setup_case(case, tmp_path / "case")
     capsys.readouterr()
-    status = cli.main(["run", str(path), "--store", str(store), "--out", str(tmp_path / "out")])
+    before = {str(p) for p in (tmp_path / "case").rglob("*")}
+    status = cli.main(["run", str(path), "--store", str(store)] + (["--out", str(tmp_path / "out")] if case.out else [])
+                      + [a for item in case.sets for a in ("--set", item)])
     err = capsys.readouterr().err
     assert status == 2, err
     assert_message(case, tmp_path / "case", path, err)
     assert tree(store) == state
     assert not (tmp_path / "out").exists()  # nothing half-written either
+    assert {str(p) for p in (tmp_path / "case").rglob("*")} == before
 
 
 @pytest.mark.parametrize("name", ["toml_syntax_error", "mesh_file_unreadable", "body_free_to_move"])
@@ -424,10 +582,165 @@ def test_an_iterative_solve_that_does_not_converge_shows_its_residuals_and_sugge
     assert status == 1 and "Traceback" not in err
     assert err.count("thermochain: run failed:") == 1
     message, = [line.strip() for line in err.split("thermochain: run failed:", 1)[1].splitlines() if line.strip()]
-    assert message.startswith(f"{path}: stages.stress: linear solve (amg, ")
+    assert message.startswith(f"{path}: stages.stress: linear solve (amg")  # amg, or its two-level variant
     history = re.search(r"did not converge: relative residual \S+ after 3 iterations \(last residuals ([^)]*)\)",
                         message)
     assert history and len(history.group(1).split(", ")) == 4, message  # the history: initial + 3 iterations
     assert message.endswith('try the direct solver (solver = "direct")')
-    visible = {k: v for k, v in tree(store).items() if not Path(k).parts[1].startswith(".")}
-    assert visible == {k: v for k, v in state.items() if not Path(k).parts[1].startswith(".")}
+    assert visible(tree(store)) == visible(state)
+
+
+# ------------------------------------------------------------------------- other commands, hints and notices
+
+@pytest.mark.parametrize("kind", ["folder", "not_utf8", "missing"])
+def test_a_material_file_that_cannot_be_read_is_refused_clearly(kind, tmp_path, capsys):
+    path = tmp_path / "mats.toml"
+    if kind == "folder":
+        path.mkdir()
+    elif kind == "not_utf8":
+        path.write_bytes(b"[materials.x]\ntitle = \"\xff\xfe\"\n")
+    capsys.readouterr()
+    status = cli.main(["materials", "--file", str(path)])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line, = problems(err)
+    assert line.startswith(f"{path}: ")
+    assert {"folder": "this is a folder", "not_utf8": "not a text file", "missing": "not found"}[kind] in line
+
+
+def test_a_millimetre_mesh_declared_in_metres_gets_a_notice(tmp_path, capsys, caplog):
+    """The base box (10 mm) declared in m is 10 m across: the plan goes on (it may be meant), with a notice
+    that names the unit."""
+    path = setup_case(Case([replace('unit = "mm"', 'unit = "m"'), replace('["5 mm", "5 mm", "3 mm"]', "[5, 5, 3]")]),
+                      tmp_path / "case")
+    capsys.readouterr()
+    assert cli.main(["check", str(path), "--store", str(tmp_path / "store")]) == 0
+    captured = capsys.readouterr()
+    assert "the model is 10 m across" in caplog.text and "check mesh.unit" in caplog.text  # a warning (stderr)
+    assert "note: the model is 10 m across" in captured.out  # in the mesh description too
+
+
+def test_a_bare_temperature_below_150_k_gets_a_hint(tmp_path, caplog):
+    path = setup_case(Case([replace('ambient = "25 degC"', "ambient = 35")]), tmp_path / "case")
+    assert cli.main(["-q", "check", str(path), "--store", str(tmp_path / "store")]) == 0
+    assert (f"{path}: stages.heat.convection.top.ambient: the bare number 35 is read as 35 K (-238.15 degC); "
+            'if degrees Celsius were meant, write "35 degC"') in caplog.messages  # a warning (stderr)
+    from pipeline.flow import runner
+
+    record = runner.run(path, store=str(tmp_path / "store"), out=str(tmp_path / "out"))
+    assert [h for h in record["hints"] if "ambient: the bare number 35 is read as 35 K" in h]  # in summary.json
+
+
+def test_report_refuses_a_summary_that_is_not_a_finished_runs(tmp_path, filled_store, capsys):
+    store, _ = filled_store
+    folder = tmp_path / "results"
+    folder.mkdir()
+    for text, words in (('{"total": 3}', "not the summary of a thermochain run"),
+                        ("\xff not json", "cannot be read as JSON"),
+                        ('{"thermochain": "0.1.0", "workflow_path": "w.toml", "stages": {}, "status": "failed"}',
+                         "the run did not finish")):
+        (folder / "summary.json").write_text(text, encoding="latin-1")
+        capsys.readouterr()
+        status = cli.main(["report", str(folder), "--store", str(store)])
+        err = capsys.readouterr().err
+        assert status == 2 and "Traceback" not in err, err
+        line, = problems(err)
+        assert line.startswith(f"{folder / 'summary.json'}: ") and words in line
+
+
+def test_material_text_is_printed_literally(tmp_path, capsys):
+    """Text from a material file is not terminal markup: '[bold]' and '[link=...]' are shown as typed."""
+    path = tmp_path / "mats.toml"
+    path.write_text('[materials.odd]\ntitle = "[bold red]loud[/bold red]"\nnote = "[link=https://example.invalid]'
+                    'click[/link] :smile:"\nconductivity = 1.0\nyoungs_modulus = 1e9\npoisson_ratio = 0.3\n'
+                    'expansion = 1e-5\ndensity = 1000.0\n')
+    capsys.readouterr()
+    assert cli.main(["materials", "odd", "--file", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "[bold red]loud[/bold red]" in out
+    assert "[link=https://example.invalid]click[/link] :smile:" in " ".join(out.split())
+
+
+# ------------------------------------------------------------------------------------------- studies
+
+def test_converge_refuses_the_same_mesh_three_times(tmp_path, filled_store, capsys):
+    store, _ = filled_store
+    path = setup_case(Case(), tmp_path / "case")
+    mesh = str(tmp_path / "case" / "box.msh")
+    capsys.readouterr()
+    status = cli.main(["converge", str(path), "--meshes", mesh, mesh, mesh, "--store", str(store),
+                       "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line, = problems(err)
+    assert line.startswith("--meshes: ") and "is the same mesh as" in line and "identical content" in line
+    assert not (tmp_path / "out").exists()
+
+
+def test_converge_refuses_levels_whose_finest_mesh_cannot_fit(tmp_path, filled_store, capsys, monkeypatch):
+    """6 levels of the 576-tetrahedron box are 18.9 million tetrahedra: refused with the estimate before any
+    refinement (the memory available is set to 1 GiB for the test)."""
+    from pipeline.stages import solvers
+
+    monkeypatch.setattr(solvers, "available_memory", lambda: 2**30)
+    store, _ = filled_store
+    path = setup_case(Case(), tmp_path / "case")
+    capsys.readouterr()
+    status = cli.main(["converge", str(path), "--levels", "6", "--store", str(store), "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line, = problems(err)
+    assert re.search(r"^--levels 6: the finest mesh would have about 18,874,368 tetrahedra \(32,768 times", line)
+    assert "1.00 GiB is available; give --levels 3 or fewer" in line
+    assert not (tmp_path / "out" / "meshes").exists()
+
+
+def test_a_sweep_checks_one_variant_up_front_and_plans_the_others_when_they_run(tmp_path, monkeypatch):
+    """400 variants: the definition and one variant are checked before anything runs (plans counted)."""
+    from pipeline.flow import runner
+    from pipeline.studies import execute, sweep
+
+    path = setup_case(Case(), tmp_path / "case")
+    films = ", ".join(f'"{5 + 0.1 * i:.1f} W/(m^2*K)"' for i in range(40))
+    ambients = ", ".join(f'"{20 + i} degC"' for i in range(10))
+    path.write_text(path.read_text() + f'\n[sweep]\ngrid = {{ "stages.heat.convection.top.film_coefficient" = '
+                    f'[{films}], "stages.heat.convection.top.ambient" = [{ambients}] }}\n')
+    counted = []
+    original = runner.plan
+    monkeypatch.setattr(runner, "plan", lambda *a, **k: counted.append(1) or original(*a, **k))
+
+    class Stop(Exception):
+        pass
+
+    def stop(self, function, tasks, done):
+        raise Stop(len(list(tasks)))
+
+    monkeypatch.setattr(execute.Executor, "map", stop)
+    with pytest.raises(Stop) as ran:
+        sweep.run(path, store=str(tmp_path / "store"), serial=True, out=str(tmp_path / "sweep"))
+    assert ran.value.args == (400,) and len(counted) <= 2
+
+
+def test_local_workers_are_capped_at_the_cores(monkeypatch, caplog):
+    from pipeline.studies import execute
+
+    monkeypatch.setattr(execute.os, "cpu_count", lambda: 2)
+    assert execute.local_workers(24) == 2 and execute.local_workers(None) == 2 and execute.local_workers(1) == 1
+    assert "--workers 24 is more than the 2 cores of this machine; using 2 worker processes" in caplog.text
+
+
+def test_a_conductivity_that_is_not_positive_where_the_part_is_solved_is_warned(tmp_path, filled_store):
+    """k(T) = 5 - 0.02 T W/(m*K) (invented) is negative above 250 K: the solve converges to a heated part
+    colder than its cooled boundary, which must not pass as ok without a warning naming part and material."""
+    from pipeline.flow import runner
+
+    store, _ = filled_store
+    path = setup_case(Case([
+        replace("[parts]", "[materials.soft]\nconductivity = 1.0\nconductivity_polynomial = [5.0, -0.02]\n"
+                "youngs_modulus = 20e9\npoisson_ratio = 0.3\nexpansion = 15e-6\ndensity = 1900.0\n\n[parts]"),
+        replace('material = "fr4"', 'material = "soft"')]), tmp_path / "case")
+    record = runner.run(path, store=str(store), out=str(tmp_path / "out"))
+    found = [w for w in record["warning_records"] if w["code"] == "heat.conductivity_not_positive"]
+    assert len(found) == 1 and found[0]["data"]["part"] == "upper" and found[0]["data"]["conductivity"] < 0
+    assert "part upper: the conductivity of soft falls to" in found[0]["message"]
+    assert record["stages"]["heat"]["parts_degC"]["upper"]["min"] < 40.0  # colder than the 40 degC boundary

@@ -44,11 +44,17 @@ def test_demo_workflow_runs_and_writes_summary_and_vtu(tmp_path):
     assert mech["equilibrium"]["relative"] < 1e-8
     assert "ductile" in mech["parts"]["spreader"]["criterion"]
     grid = meshio.read(out / mech["vtu"])
-    assert grid.point_data["displacement_m"].shape[1] == 3 and "von_mises_Pa" in grid.cell_data
+    assert grid.point_data["displacement_m"].shape[1] == 3 and "von_mises_Pa" in grid.point_data
     assert (out / "summary.csv").read_text().startswith("stage,kind,item,quantity,value")
     again = thermochain("run", DEMO, "--out", out, "--store", tmp_path / "store")
     statuses = {n: s["status"] for n, s in json.loads((out / "summary.json").read_text())["stages"].items()}
     assert again.returncode == 0 and set(statuses.values()) == {"reused"}
+    # the verdict is part of the result; --check-verdict turns 'fail' into exit status 3 (reused stages)
+    assert mech["verdict"]["verdict"] in ("pass", "fail", "no criterion")
+    strict = thermochain("run", DEMO, "--out", out, "--store", tmp_path / "store", "--check-verdict",
+                         "--set", "output.required_safety_factor=1e6")
+    assert strict.returncode == 3 and "verdict fail in stress" in strict.stderr, strict.stderr
+    assert json.loads((out / "summary.json").read_text())["status"] == "ok"  # the computation succeeded
 
 
 def test_check_validates_without_solving(tmp_path):

@@ -194,3 +194,86 @@ def test_planning_a_mutated_workflow_gives_a_plan_or_an_input_error(data):
             runner.plan(path, store=str(Path(folder) / "store"))
         except errors.InputError as exc:
             assert exc.problems and all(folder in line for line in exc.problems), exc.problems
+
+
+# ------------------------------------------------------------------------------- names and the store
+
+@LOAD
+@given(st.text(min_size=1, max_size=80))
+def test_a_plain_name_keeps_a_file_inside_its_folder(name):
+    """Any name ``plain_name`` accepts, made into '<folder>/<name>_parts.png', names a file directly in the
+    folder (no separator, no '..', no NUL, no drive); the suggestion for a refused name is itself plain."""
+    folder = Path("/results")
+    if wf.plain_name(name):
+        target = folder / f"{name}_parts.png"
+        assert target.parent == folder and ".." not in target.parts and "\x00" not in name
+        assert Path(name).name == name and not Path(name).is_absolute()
+    else:
+        assert wf.plain_name(wf._plain_suggestion(name))
+
+
+NODE = st.recursive(
+    st.sampled_from(["file", "link_out", "link_in"]),
+    lambda children: st.dictionaries(st.sampled_from(
+        ["arrays.npz", "meta.json", "manifest.json", "notes.txt", "entry", ".hidden", "a" * 64, "b" * 64,
+         ".%s.abcd1234" % ("c" * 64), ".%s.lock" % ("d" * 64)]), children, max_size=4),
+    max_leaves=12)
+
+
+def _build(folder: Path, node, outside: Path) -> None:
+    for name, child in node.items():
+        path = folder / name
+        if child == "file":
+            path.write_text(name)
+        elif child == "link_out":
+            path.symlink_to(outside, target_is_directory=True)
+        elif child == "link_in":
+            path.symlink_to(folder)
+        else:
+            path.mkdir()
+            _build(path, child, outside)
+
+
+def _state(folder: Path) -> dict[str, str]:
+    out = {}
+    for p in sorted(folder.rglob("*")):
+        out[str(p.relative_to(folder))] = ("link" if p.is_symlink() else "dir" if p.is_dir() else p.read_text())
+    return out
+
+
+@settings(max_examples=60, deadline=None, database=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.dictionaries(st.sampled_from(["heat", "map", "stress", "Bad-Kind", ".x", "thermochain-store.json"]),
+                       NODE, max_size=3), st.booleans())
+def test_cleaning_any_folder_removes_only_verified_entries(layout, marked):
+    """Whatever a folder holds (files, folders, links out of it and into it, hidden names, names like
+    entries and leftovers), cleaning it deletes nothing outside, nothing when it is not a store, and in a
+    store only folders that hold nothing but an entry's files -- exactly those it reports."""
+    from pipeline.flow import store as store_mod
+
+    with tempfile.TemporaryDirectory() as work:
+        root, outside = Path(work) / "store", Path(work) / "outside"
+        root.mkdir()
+        outside.mkdir()
+        (outside / "precious").write_text("keep")
+        _build(root, {k: v for k, v in layout.items() if not (marked and k == "thermochain-store.json")}, outside)
+        if marked:
+            (root / "thermochain-store.json").write_text('{"store_schema": 2}')
+        before = _state(root)
+        s = store_mod.Store(root)
+        try:
+            done = s.clean(0)
+        except errors.InputError:
+            assert not marked
+            assert _state(root) == before
+            return
+        assert marked and (outside / "precious").read_text() == "keep" and len(list(outside.iterdir())) == 1
+        after = _state(root)
+        gone = {k for k in before if k not in after}
+        reported = {str(e.path.relative_to(root)) for e in done.removed} | {str(p.relative_to(root))
+                                                                             for p in done.leftovers}
+        tops = {k for k in gone if not any(k.startswith(r + "/") for r in gone if r != k)}
+        assert tops == reported
+        for name in reported:
+            removed = {k[len(name) + 1:] for k in gone if k.startswith(name + "/")}
+            assert removed <= set(store_mod.ENTRY_FILES) | {"entry"} | {f"entry/{n}" for n in store_mod.ENTRY_FILES}
+            assert before[name] == "dir"

@@ -147,8 +147,15 @@ def test_keys_are_canonical_and_sensitive():
 
 
 def test_the_store_folder_comes_from_the_option_then_the_environment(tmp_path, monkeypatch):
+    """One rule for every command (issue 14): --store, else $THERMOCHAIN_STORE, else the user's cache folder,
+    whatever the workflow's folder or the current folder."""
+    import platformdirs
+
     monkeypatch.setenv(store_mod.ENV, str(tmp_path / "env_store"))
     assert runner.store_root(DEMO, None) == tmp_path / "env_store"
     assert runner.store_root(DEMO, str(tmp_path / "opt")) == tmp_path / "opt"
     monkeypatch.delenv(store_mod.ENV)
-    assert runner.store_root(DEMO, None) == DEMO.parent / ".thermochain-store"
+    default = platformdirs.user_cache_path("thermochain") / "store"
+    assert runner.store_root(DEMO, None) == runner.store_root(tmp_path / "elsewhere.toml", None) == default
+    monkeypatch.chdir(tmp_path)
+    assert store_mod.root() == default

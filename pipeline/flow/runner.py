@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import json
 import logging
-import os
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,6 +20,7 @@ from ..model import materials as materials_mod
 from ..model import mesh as mesh_mod
 from ..notices import Notice
 from ..outputs import publish, summary
+from . import folders
 from . import store as store_mod
 from . import workflow as wf
 
@@ -39,9 +39,10 @@ class Plan:
     domain: mesh_mod.Domain
 
 
-def store_root(path: Path, option: str | None) -> Path:
-    """--store, else $THERMOCHAIN_STORE, else .thermochain-store beside the workflow."""
-    return Path(option or os.environ.get(store_mod.ENV) or path.parent / ".thermochain-store")
+def store_root(path: Path | None, option: str | None) -> Path:
+    """The store every command uses (``store.root``): --store, else $THERMOCHAIN_STORE, else the user's
+    cache folder; the same whatever the workflow's folder (``path`` is not read)."""
+    return store_mod.root(option)
 
 
 def plan(path: str | Path, sets: list[str] | None = None, store: str | None = None,
@@ -58,7 +59,8 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             if not Path(section.file).is_file():
                 raise errors.MeshError(f"{path}: {key}.file: mesh file not found: {section.file} (a path relative "
                                        "to the workflow file)")
-            domains[k] = mesh_mod.load(section.file, unit=section.unit)
+            domains[k] = _joined(_load_mesh(Path(section.file), section.unit), workflow, path,
+                                 strict=section is workflow.mesh)
         return domains[k]
 
     if workflow is None:  # the mesh or the parts table itself is unusable: nothing to check names against
@@ -88,7 +90,7 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
     for name in _order(workflow):
         stage = workflow.stages[name]
         where = f"{path}: stages.{name}"
-        if getattr(stage, "source", None) in failed:
+        if any(s in failed for s in kinds.base.upstream_names(stage)):
             failed.add(name)  # its source's problems are reported already
             continue
         try:
@@ -99,10 +101,41 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             continue
         stages.append(kinds.base.finish(planned, where, stage))
         ctx.planned[name] = planned
+    folder = Path(out) if out else Path(workflow.output.folder)
+    where = f"{path}: output.folder" if not out else "--out"
+    problems += folders.results_problems(folder, where)
+    chosen = store_mod.Store(store_root(path, store))
+    try:
+        chosen.check()
+    except errors.InputError as exc:
+        problems += exc.records
     if problems:
         raise errors.InputError(problems)  # once each: a part's material is read by several stages
-    folder = Path(out) if out else Path(workflow.output.folder)
-    return Plan(path, workflow, stages, store_mod.Store(store_root(path, store)), folder, main)
+    return Plan(path, workflow, stages, chosen, folder, main)
+
+
+_MESHES: dict[tuple, mesh_mod.Domain] = {}
+
+
+def _load_mesh(file: Path, unit: str) -> mesh_mod.Domain:
+    """A mesh read once per process while its file is unchanged (a sweep plans hundreds of variants of one
+    workflow: one Domain, not one per variant); the last few files are kept."""
+    info = file.stat()
+    k = (str(file.resolve()), unit, info.st_size, info.st_mtime_ns)
+    if k not in _MESHES:
+        _MESHES[k] = mesh_mod.load(file, unit=unit)
+        while len(_MESHES) > 4:
+            _MESHES.pop(next(iter(_MESHES)))
+    return _MESHES[k]
+
+
+def _joined(domain: mesh_mod.Domain, workflow, path: Path, strict: bool) -> mesh_mod.Domain:
+    """The domain with the workflow's [interfaces] applied (split contacts, ties); on a mesh other than
+    the workflow's own, only the joints whose parts it has."""
+    joints = {name: mesh_mod.Joint(j.kind, tuple(j.parts) if j.parts else None, j.surface)
+              for name, j in workflow.interfaces.items()
+              if strict or (set(j.parts or ()) <= set(domain.parts) and (j.surface is None or j.surface in domain.surfaces))}
+    return mesh_mod.join(domain, joints, f"{path}: interfaces") if joints else domain
 
 
 def _order(workflow) -> list[str]:
@@ -112,9 +145,9 @@ def _order(workflow) -> list[str]:
     def visit(name: str, seen: tuple = ()) -> None:
         if name in done or name in seen:
             return
-        source = getattr(workflow.stages[name], "source", None)
-        if source in workflow.stages:
-            visit(source, seen + (name,))
+        for source in kinds.base.upstream_names(workflow.stages[name]):
+            if source in workflow.stages:
+                visit(source, seen + (name,))
         done.append(name)
 
     for name in workflow.stages:
@@ -157,7 +190,7 @@ def _reason(s: StagePlan, hit: bool, forced: bool, previous: dict | None, change
         return f"{s.name} reused: an entry for exactly these inputs is in the store"
     if old is None:
         return f"{s.name} computed: not in the store"
-    return f"{s.name} recomputed: {_what_changed(old, s.inputs, s.source, changed)}"
+    return f"{s.name} recomputed: {_what_changed(old, s.inputs, ', '.join(s.reads) or None, changed)}"
 
 
 def _what_changed(old: dict, new: dict, source: str | None, changed: set[str]) -> str:
@@ -217,6 +250,14 @@ def execute(path, sets=None, store=None, out=None, rerun=None, progress=None):
     started = time.perf_counter()
     say = progress or (lambda line: None)
     p = plan(path, sets, store, out)
+    with folders.results_lock(p.folder, say):
+        return _execute(p, sets, rerun, say, started)
+
+
+def _execute(p: Plan, sets, rerun, say, started):
+    """The run of ``execute`` on a planned workflow, its results folder locked."""
+    from ..results import Run
+
     previous = _previous(p.folder)
     plan_decisions = decisions(p, rerun, previous)
     record = _header(p) | {"sets": list(sets or []), "folder": str(p.folder)}
@@ -225,7 +266,8 @@ def execute(path, sets=None, store=None, out=None, rerun=None, progress=None):
         t0 = time.perf_counter()
         reuse, reason = plan_decisions[s.name]
         kind = kinds.get(s.kind)
-        entry = {"kind": s.kind, "key": s.key, "reads": s.source, "materials": s.materials}
+        entry = {"kind": s.kind, "key": s.key, "reads": s.source if not s.sources else list(s.sources),
+                 "materials": s.materials}
         try:
             with p.store.lock(s.kind, s.key):  # a second run waits here, then finds the entry
                 got = None if s.name in (rerun or []) else p.store.get(s.kind, s.key)
@@ -240,7 +282,8 @@ def execute(path, sets=None, store=None, out=None, rerun=None, progress=None):
                     for note in s.notices:
                         say(f"{s.name}: note: {note.message}")
                     log.info("%s: computing (%s)", s.name, s.kind)
-                    upstream = (results[s.source], domains[s.source]) if s.source else None
+                    upstream = [(results[n], domains[n]) for n in s.sources] if s.sources else \
+                        (results[s.source], domains[s.source]) if s.source else None
                     result, status = kind.compute(s, upstream), "computed"
                     arrays, meta = result.to_arrays()
                     p.store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
@@ -297,10 +340,8 @@ def _publish(p: Plan, record: dict, results: dict, domains: dict, previous: dict
 def report(folder: str | Path, store: str | None = None) -> dict:
     """Rebuild figures and report.html of a results folder from its stored results, without solving."""
     folder = Path(folder)
-    previous = _previous(folder)
-    if previous is None:
-        raise errors.InputError(f"{folder}: no summary.json here; give the results folder of a run")
-    p = plan(previous["workflow_path"], previous.get("sets"), store or previous["store"], str(folder))
+    previous = folders.own_summary(folder)
+    p = plan(previous["workflow_path"], previous.get("sets") or [], store or previous["store"], str(folder))
     results, domains = {}, {}
     for s in p.stages:
         got = p.store.get(s.kind, s.key)
@@ -308,8 +349,9 @@ def report(folder: str | Path, store: str | None = None) -> dict:
             raise errors.InputError(f"{folder}: the stored result of stage {s.name} no longer matches the workflow "
                                     f"({got if isinstance(got, str) else 'inputs changed'}); run it again")
         results[s.name], domains[s.name] = kinds.get(s.kind).RESULT.from_arrays(*got), s.domain
-    _publish(p, previous, results, domains)
-    summary.write_json(folder / "summary.json", previous)
+    with folders.results_lock(folder, lambda line: None):
+        _publish(p, previous, results, domains)
+        summary.write_json(folder / "summary.json", previous)
     return previous
 
 
@@ -321,15 +363,25 @@ def _material_sources(p: Plan) -> dict[str, str]:
     return out
 
 
+def _value_sources(p: Plan) -> dict[str, dict[str, str]]:
+    """material -> property -> its source (the report footnotes each value with it)."""
+    out: dict[str, dict[str, str]] = {}
+    for s in p.stages:
+        for part, material in getattr(s.spec, "materials", {}).items():
+            out.setdefault(s.materials[part], {}).update(material.sources)
+    return out
+
+
 def _header(p: Plan) -> dict:
     d = p.domain
     return {
         "thermochain": __version__, "workflow": str(p.path), "workflow_path": str(p.path.resolve()),
         "title": p.workflow.title, "store": str(p.store.root.resolve()),
-        "material_sources": _material_sources(p),
+        "material_sources": _material_sources(p), "material_value_sources": _value_sources(p),
         "mesh": {"file": p.workflow.mesh.file, "unit": p.workflow.mesh.unit, "nodes": len(d.points),
                  "tetrahedra": len(d.tetrahedra), "bounding_box_m": [b.tolist() for b in d.bounding_box],
                  "part_ids": publish.vtu.part_legend(d), "notices": list(d.notices)},
+        "hints": wf.hints(p.workflow),  # e.g. bare temperatures below 150 K (read as K)
         "stages": {}, "caution": summary.CAUTION,
     }
 

@@ -8,6 +8,7 @@ them.  Every problem is reported at once, with the file and the key path.  See d
 from __future__ import annotations
 
 import copy
+import logging
 import math
 import re
 import tomllib
@@ -15,12 +16,25 @@ import typing
 from pathlib import Path
 from typing import Annotated, Literal, Union
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, WithJsonSchema, create_model
+from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, WithJsonSchema, create_model,
+                      model_validator)
 
-from .. import errors
+from .. import errors, files
 from ..model.finishes import FINISHES
-from ..model.units import to_si
+from ..model.units import ZERO_CELSIUS, to_si
 from ..stages import solvers
+
+log = logging.getLogger(__name__)
+
+#: a workflow file larger than this is refused unread (workflows are a few kB)
+MAX_FILE_BYTES = 1 << 20
+#: longest ``extends`` chain
+MAX_EXTENDS = 32
+#: a bare temperature below this [K] gets a hint: an ambient of 35 K is more often 35 degC mistyped
+COLD_HINT_K = 150.0
+#: a name that becomes part of a file name (stage, probe, line): a plain identifier
+PLAIN_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_-]{0,63}$")
+RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(1, 10)), *(f"lpt{i}" for i in range(1, 10))}
 
 
 #: JSON Schema words for pydantic's bounds
@@ -34,24 +48,43 @@ def _quantity_schema(unit: str, bounds: dict) -> WithJsonSchema:
     return WithJsonSchema({"anyOf": [number, text], "description": f"[{unit}]", "x-unit": unit})
 
 
-def quantity(unit: str, **bounds):
-    """A finite float in ``unit`` (SI) that may be written as a string with any unit of the same dimension."""
-    return Annotated[float, BeforeValidator(lambda v: _finite_si(v, unit)), Field(description=f"[{unit}]", **bounds),
-                     _quantity_schema(unit, bounds)]
+def quantity(unit: str, limit: float = 1e20, **bounds):
+    """A finite float in ``unit`` (SI) that may be written as a string with any unit of the same dimension;
+    its magnitude is at most ``limit`` (beyond any physical value here, and safe from overflow)."""
+    return Annotated[float, BeforeValidator(lambda v: _finite_si(v, unit, limit)),
+                     Field(description=f"[{unit}]", **bounds), _quantity_schema(unit, bounds)]
 
 
-def _finite_si(value, unit: str) -> float:
+def _finite_si(value, unit: str, limit: float = 1e20) -> float:
     try:
         out = to_si(value, unit)
     except OverflowError:
         raise ValueError(f"the number is too large (give a value in {unit})") from None
     if not math.isfinite(out):
         raise ValueError(f"must be a finite number in {unit}, got {value!r}")
+    if abs(out) > limit:
+        raise ValueError(f"{out:.3g} {unit} is beyond any plausible value here (at most {limit:g} {unit} in "
+                         f"magnitude); check the number and its unit, got {value!r}")
     return out
 
 
+_CELSIUS = {"c", "deg c", "degc", "celsius", "ºc", "° c", "oc", "degree c", "degrees c", "degree celsius",
+            "degrees celsius", "centigrade"}
+_FAHRENHEIT = {"f", "deg f", "degf", "fahrenheit", "ºf", "° f", "degree f", "degrees f", "degrees fahrenheit"}
+
+
 def _temperature(value) -> float:
-    kelvin = _finite_si(value, "K")
+    try:
+        kelvin = _finite_si(value, "K", 1e5)
+    except ValueError:
+        match = re.match(r"^\s*([-+]?[0-9.eE+-]+)\s*(.*?)\s*$", value) if isinstance(value, str) else None
+        unit = match.group(2).lower() if match else ""
+        for words, name in ((_CELSIUS, "degC"), (_FAHRENHEIT, "degF")):
+            if unit in words:
+                raise ValueError(f"'{match.group(2)}' is not a temperature unit here ('C' is the coulomb, 'F' the "
+                                 f"farad); did you mean '{match.group(1)} {name}'? (temperature units: K, degC, "
+                                 f"degF), got {value!r}") from None
+        raise
     if kelvin < 0:
         raise ValueError(f"a temperature must be greater than or equal to 0 K (absolute zero, -273.15 degC); "
                          f"got {value!r} = {kelvin:g} K")
@@ -62,12 +95,13 @@ Temperature = Annotated[float, BeforeValidator(_temperature), Field(description=
                         _quantity_schema("K", {"ge": 0})]
 Length = quantity("m")
 PositiveLength = quantity("m", gt=0)
-Power = quantity("W")
-Generation = quantity("W/m**3")
-HeatFluxDensity = quantity("W/m**2")
+#: bounds of plausibility (common practice: far beyond any electronics load; they keep the solve finite)
+Power = quantity("W", limit=1e9)
+Generation = quantity("W/m**3", limit=1e16)
+HeatFluxDensity = quantity("W/m**2", limit=1e10)
 FilmCoefficient = quantity("W/(m**2*K)", gt=0)
-Pressure = quantity("Pa")
-Force = quantity("N")
+Pressure = quantity("Pa", limit=1e12)
+Force = quantity("N", limit=1e10)
 SpringStiffness = quantity("N/m**3", gt=0)
 Acceleration = quantity("m/s**2")
 LengthUnit = Literal["m", "cm", "mm", "um", "in"]
@@ -111,7 +145,46 @@ class OutputSection(Strict):
     figures: bool = Field(default=True, description="PNG figures (pyvista off-screen, matplotlib)")
     report: bool = Field(default=True, description="report.html with the figures embedded")
     required_safety_factor: Annotated[float, Field(gt=0)] = Field(
-        default=1.5, description="pass/fail threshold in the report (1.5 against yield is common practice)")
+        default=1.5, description="pass/fail threshold of the stress verdict (1.5 against yield is common practice)")
+
+
+class LineSection(Strict):
+    start: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(description="first point of a straight line along which the stress stage reports temperature, displacement and stress (as for probes); points outside the mesh are listed with `outside = true`")
+    end: Annotated[list[Length], Field(min_length=3, max_length=3)] = Field(description="last point")
+    points: Annotated[int, Field(ge=2)] = Field(default=50, description="equally spaced points, ends included")
+
+
+class InterfaceSection(Strict):
+    """A joint between two parts (docs/workflow.md, [interfaces]): by its parts or by a surface group on it."""
+
+    kind: Literal["contact", "tie", "insulated", "section"] = Field(
+        description="contact: split the shared interface, a conductance acts across it (sides stay together in "
+                    "the stress stage); tie: parts meshed apart, heat and displacement continuous (mortar); "
+                    "insulated: no heat crosses; section: a bolt's pretension section (a planar interface "
+                    "across the shank between two parts) for stages.NAME.preload")
+    parts: Annotated[list[str], Field(min_length=2, max_length=2)] | None = Field(
+        default=None, description="the two parts (for a tie: the part that follows first)")
+    surface: str | None = Field(default=None, description="or a surface group lying on the interface")
+    conductance: quantity("W/(m**2*K)", ge=0) | None = Field(default=None, description="contact conductance h_c")
+    resistance: quantity("m**2*K/W", gt=0) | None = Field(default=None, description="or contact resistance R''")
+
+    @model_validator(mode="after")
+    def _values(self):
+        if (self.parts is None) == (self.surface is None):
+            raise ValueError("give either parts = [a, b] or surface = NAME")
+        given = (self.conductance is not None) + (self.resistance is not None)
+        if self.kind == "contact" and given != 1:
+            raise ValueError("a contact needs exactly one of conductance [W/(m^2*K)] or resistance [m^2*K/W]")
+        if self.kind != "contact" and given:
+            raise ValueError(f"a {self.kind} joint takes no conductance or resistance")
+        return self
+
+    @property
+    def heat_conductance(self) -> float:
+        """h_c [W/(m^2*K)]: the given one, 1/R'', or 0 for an insulated interface."""
+        if self.kind in ("insulated", "section"):
+            return 0.0
+        return self.conductance if self.conductance is not None else 1.0 / self.resistance
 
 
 class WorkflowBase(Strict):
@@ -119,11 +192,17 @@ class WorkflowBase(Strict):
 
     title: str = Field(default="", description="shown in the summary and the report")
     mesh: MeshSection
-    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]")
+    materials: dict[str, dict] = Field(default_factory=dict, description="inline materials, same keys (SI numbers) as the library (`thermochain materials NAME`); `conductivity_table = [[T, k], ...]` (or `[T, kx, ky, kz]`) or `conductivity_polynomial = [c0, c1, ...]` make k depend on T [K]; a brittle orthotropic material with `tensile_strength_axes = [X, Y, Z]` (and optionally `shear_strength_axes = [S_xy, S_xz, S_yz]`) [Pa] is judged in its material axes (maximum stress per axis)")
     parts: dict[str, PartSection]
     probes: dict[str, Annotated[list[Length], Field(min_length=3, max_length=3)]] = Field(
-        default_factory=dict, description="named points (x, y, z) whose values every stage reports")
+        default_factory=dict, description="named points (x, y, z) whose values every stage reports (stress: the part it lies in, displacement, temperature, the full stress tensor xx, yy, zz, xy, yz, xz, principal stresses and von Mises of the recovered field)")
+    lines: dict[str, LineSection] = Field(default_factory=dict, description="a straight line; the stress stage "
+                                          "reports temperature, displacement and stress (as for probes) at equally spaced points along it; "
+                                          "points outside the mesh are listed with `outside = true`")
     output: OutputSection = OutputSection()
+    interfaces: dict[str, InterfaceSection] = Field(
+        default_factory=dict, description="joints between parts: contact conductance, ties of parts meshed apart, "
+                                          "insulated interfaces")
     # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
     # is in no store key
     sweep: dict | None = Field(default=None, description="a parameter study: grid and paired value lists "
@@ -168,23 +247,18 @@ def stage_schema(kind: object) -> type[BaseModel] | None:
 
 
 def read_raw(path: Path, seen: tuple[Path, ...] = ()) -> dict:
-    """The TOML tables of ``path`` merged over those of the file it ``extends`` (recursively).
+    """The TOML tables of ``path`` merged over those of the file it ``extends`` (recursively, at most
+    ``MAX_EXTENDS`` deep; each file at most ``MAX_FILE_BYTES``).
 
     Paths in each file are made relative to the file that names them."""
     path = Path(path)
     if path.resolve() in seen:
         chain = " -> ".join(str(p) for p in seen + (path.resolve(),))
         raise errors.InputError(f"{path}: 'extends' loops back on itself: {chain}")
-    try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise errors.InputError(f"{path}: workflow file not found") from None
-    except UnicodeDecodeError:
-        raise errors.InputError(f"{path}: not a text file (a workflow is UTF-8 TOML)") from None
-    except OSError as exc:
-        raise errors.InputError(f"{path}: cannot read the workflow file ({exc.strerror or exc})") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise errors.InputError(f"{path}: TOML syntax error: {exc}") from None
+    if len(seen) >= MAX_EXTENDS:
+        raise errors.InputError(f"{seen[0]}: the 'extends' chain is more than {MAX_EXTENDS} files deep (at {path}); "
+                                "a workflow extends a few shared files at most: shorten the chain")
+    raw = files.read_toml(path, "workflow file", MAX_FILE_BYTES)
     _absolute_paths(raw, path.parent)
     parent = raw.pop("extends", None)
     if parent is None:
@@ -202,6 +276,8 @@ def _absolute_paths(raw: dict, base: Path) -> None:
     def fix(table, key):
         if isinstance(table, dict) and isinstance(table.get(key), str):
             table[key] = str(base / table[key])
+        elif isinstance(table, dict) and isinstance(table.get(key), dict):  # one file per part
+            table[key] = {k: str(base / v) if isinstance(v, str) else v for k, v in table[key].items()}
 
     fix(raw.get("mesh"), "file")
     fix(raw.get("output"), "folder")
@@ -245,32 +321,137 @@ def apply_sets(raw: dict, sets: list[str], where: str) -> dict:
 
 
 def load(path: str | Path, sets: list[str] | None = None) -> WorkflowBase:
-    """Parse, merge, override and validate a workflow file."""
-    path = Path(path)
-    raw = apply_sets(read_raw(path), sets or [], str(path))
-    try:
-        workflow = model().model_validate(raw)
-    except ValidationError as exc:
-        raise errors.InputError(_messages(path, exc.errors(), raw)) from None
-    problems = _cycles(path, workflow)
+    """Parse, merge, override and validate a workflow file; hints (bare temperatures that look like degC)
+    are logged as warnings and kept in ``hints(workflow)``."""
+    workflow, problems, _ = load_sections(path, sets)
     if problems:
         raise errors.InputError(problems)
     return workflow
 
 
+_HINTS: dict[int, tuple[WorkflowBase, list[str]]] = {}
+
+
+def hints(workflow: WorkflowBase) -> list[str]:
+    """The hints found when ``workflow`` was loaded (bare temperatures below ``COLD_HINT_K``)."""
+    entry = _HINTS.get(id(workflow))
+    return list(entry[1]) if entry and entry[0] is workflow else []
+
+
+def _origin(path: Path, sets: list[str]):
+    """Where a key path's value came from: the file, or the --set option that gave it (or its table)."""
+    given = [(tuple(item.split("=", 1)[0].strip().split(".")), item) for item in sets if "=" in item]
+
+    def where(loc: tuple) -> str:
+        loc = tuple(str(p) for p in loc)
+        for keys, item in reversed(given):  # the last --set of a key wins
+            n = min(len(keys), len(loc))
+            if keys[:n] == loc[:n]:
+                return f"--set {item} (over {path})"
+        return str(path)
+    return where
+
+
+def plain_name(name: str) -> bool:
+    """Whether ``name`` can be part of a file name anywhere: a letter or '_' first, then letters, digits,
+    '_' or '-', at most 64 characters, and not a name Windows reserves."""
+    return bool(PLAIN_NAME.match(name)) and name.lower() not in RESERVED
+
+
+def name_problems(path: Path, workflow: WorkflowBase) -> list[str]:
+    """Names that become file names (stages, probes, lines) must be plain identifiers (``plain_name``)."""
+    out = []
+    for table in ("stages", "probes", "lines"):
+        for name in getattr(workflow, table, None) or {}:
+            if not plain_name(name):
+                out.append(f"{path}: {table}.{name!r}: a {table[:-1]} name becomes part of file names in the results "
+                           "folder, so it must be a plain name: a letter or '_' first, then letters, digits, '_' or "
+                           f"'-' (at most 64; not {', '.join(sorted(RESERVED)[:4])}, ...), for example "
+                           f"'{_plain_suggestion(name)}'")
+    return out
+
+
+def _plain_suggestion(name: str) -> str:
+    text = re.sub(r"[^A-Za-z0-9_-]+", "_", name).strip("_-")[:64] or "stage"
+    return text if re.match(r"[A-Za-z_]", text) and text.lower() not in RESERVED else f"_{text}"[:64]
+
+
+def _is_temperature(annotation) -> bool:
+    """Whether a schema annotation is (or holds, in a dict or an optional) a ``Temperature``."""
+    if typing.get_origin(annotation) is Annotated:
+        args = typing.get_args(annotation)
+        if any(getattr(m, "func", None) is _temperature for m in args[1:]):
+            return True
+        return _is_temperature(args[0])
+    return any(_is_temperature(a) for a in typing.get_args(annotation))
+
+
+def _models_in(annotation) -> list[type[BaseModel]]:
+    """The schema models an annotation holds (itself, an optional, a dict's values, a union's members)."""
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return [annotation]
+    out = []
+    for a in typing.get_args(annotation):
+        out += _models_in(a)
+    return out
+
+
+def _is_table_of_tables(annotation) -> bool:
+    """dict[str, Model] (possibly optional), as opposed to one Model."""
+    if typing.get_origin(annotation) is dict:
+        return True
+    return any(_is_table_of_tables(a) for a in typing.get_args(annotation) if a is not type(None)
+               and typing.get_origin(annotation) is not Annotated)
+
+
+def _cold_hints(model: type[BaseModel], table: dict, loc: tuple, where) -> list[str]:
+    """Hints for bare numbers below ``COLD_HINT_K`` given for temperatures (read as K)."""
+    out = []
+    for key, value in table.items() if isinstance(table, dict) else ():
+        field = model.model_fields.get(str(key))
+        if field is None:
+            continue
+        here = loc + (key,)
+        if any(getattr(m, "func", None) is _temperature for m in field.metadata) or _is_temperature(field.annotation):
+            values = value.items() if isinstance(value, dict) else [(None, value)]
+            for sub, v in values:
+                if isinstance(v, (int, float)) and not isinstance(v, bool) and 0 <= v < COLD_HINT_K:
+                    at = here + ((sub,) if sub is not None else ())
+                    out.append(f"{where(at)}: {'.'.join(map(str, at))}: the bare number {v:g} is read as {v:g} K "
+                               f"({v - ZERO_CELSIUS:.2f} degC); if degrees Celsius were meant, write \"{v:g} degC\"")
+            continue
+        models = _models_in(field.annotation)
+        if not models or not isinstance(value, dict):
+            continue
+        if not _is_table_of_tables(field.annotation):
+            out += _cold_hints(models[0], value, here, where)
+            continue
+        for name, sub in value.items():  # a table of tables (stages by name): the member given by 'kind'
+            chosen = models[0] if len(models) == 1 else next(
+                (m for m in models if isinstance(sub, dict) and "kind" in m.model_fields
+                 and sub.get("kind") in typing.get_args(m.model_fields["kind"].annotation)), None)
+            if chosen is not None:
+                out += _cold_hints(chosen, sub, here + (name,), where)
+    return out
+
+
 def load_sections(path: str | Path, sets: list[str] | None = None) -> tuple[WorkflowBase | None, list, list[str]]:
     """Like ``load``, but a schema error does not stop the checks of the rest: returns the workflow
     made of every table that is valid, the schema problems and the names of the stages left out
-    (None as the workflow when the mesh, parts or output tables themselves are invalid)."""
+    (None as the workflow when the mesh, parts or output tables themselves are invalid).  A problem in a
+    value given with ``--set`` names that option; names that become file names are checked."""
     path = Path(path)
     raw = apply_sets(read_raw(path), sets or [], str(path))
+    where = _origin(path, sets or [])
     try:
         workflow = model().model_validate(raw)
     except ValidationError as exc:
-        problems: list = _messages(path, exc.errors(), raw)
+        problems: list = _messages(path, exc.errors(), raw, where)
     else:
-        cycles = _cycles(path, workflow)
-        return (None if cycles else workflow), cycles, []
+        problems = _cycles(path, workflow) + name_problems(path, workflow)
+        if not problems:
+            _remember_hints(workflow, _cold_hints(model(), raw, (), where))
+        return (None if problems else workflow), problems, []
     try:
         rest = WorkflowBase.model_validate({k: v for k, v in raw.items() if k != "stages"})
     except ValidationError:
@@ -287,8 +468,16 @@ def load_sections(path: str | Path, sets: list[str] | None = None) -> tuple[Work
             left_out.append(name)
             del stages[name]
     workflow = model().model_construct(**dict(rest), stages=stages)
-    cycles = _cycles(path, workflow)
-    return (None if cycles else workflow), problems + cycles, left_out
+    more = _cycles(path, workflow) + name_problems(path, workflow)
+    return (None if more else workflow), problems + more, left_out
+
+
+def _remember_hints(workflow: WorkflowBase, found: list[str]) -> None:
+    for line in found:
+        log.warning("%s", line)
+    _HINTS[id(workflow)] = (workflow, found)
+    while len(_HINTS) > 64:  # the latest workflows only (a sweep loads hundreds)
+        _HINTS.pop(next(iter(_HINTS)))
 
 
 def _cycles(path: Path, workflow: WorkflowBase) -> list[str]:
@@ -348,7 +537,7 @@ def _partial(node):
     return out
 
 
-def _messages(path: Path, found: list[dict], raw: dict) -> list[str]:
+def _messages(path: Path, found: list[dict], raw: dict, where=None) -> list[str]:
     """One message per key path (a union reports each of its members; the first is the most specific)."""
     cleaned = [(_clean(e["loc"], raw), e) for e in found]
     missing = {loc for loc, e in cleaned if e["type"] == "missing"}
@@ -363,11 +552,12 @@ def _messages(path: Path, found: list[dict], raw: dict) -> list[str]:
         if loc in seen or loc in misspelt:
             continue
         seen.add(loc)
-        out.append(_message(path, loc, e, raw, set(misspelt)))
+        out.append(_message((where or (lambda _: str(path)))(loc), loc, e, raw, set(misspelt)))
     return out
 
 
-def _message(path: Path, loc: tuple, error: dict, raw: dict, misspelt: set) -> str:
+def _message(path: str, loc: tuple, error: dict, raw: dict, misspelt: set) -> str:
+    """One message; ``path`` is where the value came from (the file, or a --set option over it)."""
     text = ".".join(str(p) for p in loc)
     error_type = error["type"]
     if error_type == "extra_forbidden":

@@ -5,9 +5,9 @@ from __future__ import annotations
 import csv
 import io
 import json
-import os
-import tempfile
 from pathlib import Path
+
+from .. import files
 
 CAUTION = (
     "Temperatures and stresses from thermochain are numerical estimates whose accuracy depends on the inputs "
@@ -43,15 +43,7 @@ def write_json(path: Path, data: dict) -> None:
 
 
 def write_text(path: Path, text: str) -> None:
-    """Write a file atomically: a temporary file beside the target, fsync, rename."""
+    """Write a text file atomically, creating its folder (``pipeline.files``: fresh temporary name, no
+    links followed, fsync, replace, the user's file mode)."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    files.write_text(path, text)

@@ -1,8 +1,9 @@
 """VTU files (zlib-compressed XML) that open in ParaView, and the one mesh builder behind them.
 
 ``mesh(domain, result)`` is the meshio mesh of a result (the kind's arrays on the volume cells and
-vertices, with ``part_id`` per cell); ``grid`` is the same as a pyvista grid (the figures and
-notebooks use it); ``write`` writes the VTU file.
+vertices, with ``part_id`` per cell, or a mesh of the kind's own: the stress kind writes one copy of
+each part's points); ``grid`` is the same as a pyvista grid (the figures and notebooks use it);
+``write`` writes the VTU file.
 """
 
 from __future__ import annotations
@@ -20,8 +21,8 @@ def arrays(domain, result, kind: str | None = None) -> tuple[dict, dict] | None:
 
     kind = kind or kind_of(result)
     got = kinds.hook(kind, "outputs")(domain, result)
-    if got is None:
-        return None
+    if got is None or isinstance(got, meshio.Mesh):
+        return got
     points, cells = got
     return dict(points), {"part_id": domain.part_ids()} | dict(cells)
 
@@ -39,6 +40,8 @@ def kind_of(result) -> str:
 def mesh(domain, result=None, kind: str | None = None) -> meshio.Mesh:
     """A meshio mesh of the domain [m] carrying the result's arrays (only ``part_id`` without one)."""
     got = arrays(domain, result, kind) if result is not None else None
+    if isinstance(got, meshio.Mesh):  # a kind with a mesh of its own (stress: one copy of each part's points)
+        return got
     points, cells = got if got is not None else ({}, {})
     cells = {"part_id": domain.part_ids()} | cells
     return meshio.Mesh(domain.points, [("tetra", domain.tetrahedra)], point_data=points,
@@ -50,22 +53,18 @@ def grid(domain, result=None, kind: str | None = None, scale: float = 1.0):
     import pyvista as pv
 
     m = mesh(domain, result, kind)
-    cells = np.hstack([np.full((len(domain.tetrahedra), 1), 4), domain.tetrahedra]).ravel()
-    out = pv.UnstructuredGrid(cells, np.full(len(domain.tetrahedra), pv.CellType.TETRA, dtype=np.uint8),
-                              domain.points * scale)
-    for k, v in m.point_data.items():
-        out.point_data[k] = v
-    for k, v in m.cell_data.items():
-        out.cell_data[k] = v[0]
+    out = pv.from_meshio(m)
+    out.points = np.asarray(m.points) * scale
     return out
 
 
 def write(path: Path, domain, result, kind: str | None = None) -> Path:
-    """The VTU file of a result (written beside, then moved into place)."""
+    """The VTU file of a result (written atomically by ``pipeline.files``)."""
+    from .. import files
+
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp")
-    meshio.write(tmp, mesh(domain, result, kind), file_format="vtu", compression="zlib")
-    tmp.replace(path)
+    with files.replacing_path(path) as tmp:
+        meshio.write(tmp, mesh(domain, result, kind), file_format="vtu", compression="zlib")
     return path
 
 

@@ -347,6 +347,13 @@ class Prepared:
                 x, stalled = self._last, True
         return np.asarray(x, dtype=float).ravel(), stalled
 
+    def approximate_inverse(self):
+        """x -> A^-1 x approximately, a fixed linear map for preconditioning an outer Krylov solve:
+        the factorisation (exact), or one AMG V-cycle."""
+        if self.method == "direct":
+            return self._direct.solve
+        return self._amg.preconditioner().matvec
+
     def _watch(self, history: list[float], bnorm: float):
         """Log every tenth iteration; stop a stalled iteration: less than 2x in the last 30 below a
         relative residual of FLOOR, which is where CG sits when it has reached its round-off floor

@@ -3,8 +3,11 @@
 Weak form: find u with the supports' constraints such that for every admissible v
     int eps(v) : C eps(u) dV + sum_spring int k u.v dA
         = int eps(v) : C alpha (T - T_ref) dV + int b.v dV + sum_pressure int -p n.v dA + sum_force int t.v dA
-Parts that share nodes are bonded.  C and alpha are constant per part (in model coordinates, from the
-part's material axes), so the thermal mismatch at a bonded interface is never averaged away.
+Parts that share nodes are bonded; split interfaces and ties keep their sides together (``ties``).  C and
+alpha are per part (in model coordinates, from the part's material axes), so the thermal mismatch at a
+bonded interface is never averaged away; with E(T), nu(T) or an expansion curve (``model.curves``) they
+are evaluated at each quadrature point from the mapped temperature, and the thermal strain is the
+curve's strain from the stress-free temperature T_ref.
 Units: u [m], sigma and p [Pa], k [N/m^3], b [N/m^3], forces [N], T [K].
 """
 
@@ -20,10 +23,14 @@ import scipy.sparse as sp
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
-from . import constitutive, fem, kernels, recovery, solvers, supports
+from ..model.mesh import touching_problems
+from . import constitutive, features, fem, kernels, recovery, solvers, supports, ties
 from .supports import Support
 
-STAGE_VERSION = 1
+STAGE_VERSION = 2
+#: a bilateral normal support is cautioned when more than this share of its normal force pulls (a few
+#: percent: below it the tension is round-off or a sliver of the surface; a choice of ours)
+TENSION_SHARE = 0.01
 
 
 @dataclass(frozen=True)
@@ -34,8 +41,10 @@ class StressSpec:
     not a surface).  pressure: surface -> Pa (positive pushes on the surface).  force: surface ->
     (Fx, Fy, Fz) [N], spread evenly over its area.  gravity: acceleration (gx, gy, gz) [m/s^2] acting
     on each part's density.  body_force: part -> function of x (3, ...) [m] giving (3, ...) [N/m^3].
-    probes: name -> (x, y, z) [m].  order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
+    probes: name -> (x, y, z) [m].  lines: name -> (start (x, y, z) [m], end [m], number of points >= 2).
+    order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
     memory_limit: bytes the stage may use (default: what is available); checked before assembly.
+    preload: pretension section (a "section" joint) -> bolt preload [N], tension positive (``ties.preloaded``).
     """
 
     materials: Mapping[str, Material]
@@ -48,6 +57,8 @@ class StressSpec:
     order: int = 2
     solver: str = "auto"
     memory_limit: float | None = None
+    lines: Mapping[str, tuple] = field(default_factory=dict)
+    preload: Mapping[str, float] = field(default_factory=dict)
 
 
 def check(domain, spec: StressSpec, where: str = "stress") -> None:
@@ -78,12 +89,25 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
         for name in group:
             if name not in domain.surfaces:
                 problems.append(errors.unknown_name("surface", name, domain.surfaces, f"{where}.{key}"))
+            elif key == "pressure" and (inner := int((domain.mesh.f2t[1, domain.surfaces[name]] >= 0).sum())):
+                problems.append(f"{where}.pressure: surface '{name}' has {inner} facets inside the body, not on its "
+                                "boundary; a pressure needs a boundary surface")
     for part, m in spec.materials.items():
         if np.any(np.asarray(m.youngs_modulus) <= 0):
             problems.append(f"{where}: material '{m.name}' of part '{part}' needs a positive Young's modulus")
         if m.kind == "isotropic" and not -1 < m.poisson_ratio[0] < 0.5:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
     fem.check_probes(domain, spec.probes, where, problems)
+    problems += _line_problems(spec.lines, where)
+    problems += touching_problems(domain, where)  # parts meshed apart need a joint first
+    problems += [errors.unknown_name("pretension section", n, domain.contacts, f"{where}.preload")
+                 for n in spec.preload if n not in domain.contacts]
+    problems += [f"{where}.preload.{n}: a preload must be a finite force [N], got {v}" for n, v in spec.preload.items()
+                 if not np.isfinite(v)]
+    if spec.preload and any(s.kind == "contact" for s in spec.supports.values()):
+        problems.append(f"{where}: bolt preloads are found by superposing linear solutions, which a contact support "
+                        "(it lifts off: not linear) does not allow; use a fixed, symmetry or spring support with "
+                        "preload, or drop the preload")
     if spec.order in fem.ORDERS and not problems:
         try:
             solvers.check_memory(3 * fem.unknowns(domain, spec.order), spec.order, 3, spec.solver, spec.memory_limit,
@@ -118,6 +142,8 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     space, geom = fem.space(domain, spec.order), fem.geometry(domain)
     n = 3 * space.N
     rows, pdofs, xyz = supports.gather(domain, space, spec.supports, where)
+    tie = ties.continuity(domain, space, domain.contacts, where)  # split interfaces and ties move together
+    rows, tie = ties.move_rows(tie, rows, {n for n, s in spec.supports.items() if s.kind == "minimal"}, where)
     spring_points = [space.facet_dofs(domain.surfaces[name]) for name, s in spec.supports.items() if s.kind == "spring"]
     supports.free_motions(domain, rows, xyz, np.concatenate(spring_points) if spring_points else
                           np.zeros(0, dtype=np.int64), where)
@@ -131,11 +157,20 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for part in sorted(domain.parts):
         ids = domain.parts[part]
         material = spec.materials[part]
-        c, alpha = constitutive.stiffness_matrix(material), constitutive.expansion_vector(material)
-        kernels.stiffness(space, geom, ids, c, kernels.degree_stiffness(spec.order), stiffness)
+        model = recovery.PartModel(ids, constitutive.stiffness_matrix(material),
+                                   constitutive.expansion_vector(material), material)
+        # with E(T) or nu(T) the integrands are not polynomials: one more degree per temperature order, and
+        # for an expansion curve (linear alpha(T): a strain quadratic in T) two
+        k_extra = load.order if load is not None and material.stiffness_varies else 0
+        k_degree = kernels.degree_stiffness(spec.order, k_extra)
+        kernels.stiffness(space, geom, ids, recovery.stiffness_at(domain, model, load, kernels.reference(
+            spec.order, k_degree)), k_degree, stiffness)
         if load is not None:
-            dt = recovery.temperature_rise(domain, load, ids, thermal_ref)
-            f_thermal += kernels.strain_load(space, geom, ids, np.einsum("st,t,nq->nsq", c, alpha, dt), thermal_ref)
+            curved = "expansion" in material.curves
+            ref = thermal_ref if not (k_extra or curved) else kernels.reference(
+                spec.order, spec.order - 1 + k_extra + load.order * (2 if curved else 1))
+            f_thermal += kernels.strain_load(space, geom, ids, recovery.apply(
+                recovery.stiffness_at(domain, model, load, ref), recovery.thermal_strain(domain, model, load, ref)), ref)
         b = np.zeros((len(ids), 3, len(loads_ref.weights)))
         if spec.gravity is not None:
             b += material.density * np.asarray(spec.gravity, float)[None, :, None]
@@ -143,7 +178,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
             b += np.moveaxis(spec.body_force[part](geom.points(loads_ref, ids)), 0, 1)
         if b.any():
             f_mech += kernels.vector_load(space, geom, ids, b, loads_ref)
-        per_part[part] = recovery.PartModel(ids, c, alpha, material)
+        per_part[part] = model
 
     degree = kernels.degree_mass(spec.order)
     for name, p in spec.pressure.items():
@@ -159,24 +194,40 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record = _solve_constrained(K, f_thermal + f_mech, constraints, space, spec)
+    if spec.preload:  # linear superposition of the shortenings (ties.preloaded): no contact supports
+        solve_ = lambda A, b, c: _solve_constrained(A, b, c, space, spec)  # noqa: E731
+        u, residual, record, bolts = ties.preloaded(K, f_thermal + f_mech, constraints, tie, domain, space,
+                                                    dict(spec.preload), solve_)
+        held = {}
+    else:
+        bolts = {}
+        u, residual, record, constraints, held = _solve_supported(domain, K, f_thermal + f_mech, rows, pdofs, xyz,
+                                                                  constraints, space, spec, where, tie)
     del K
-    reactions = {name: [float(residual[pdofs[pts, i]].sum()) for i in range(3)]
-                 for name, pts in constraints.owner.items()}
+    reactions = constraints.reactions(residual, pdofs)
     for name, ks in springs.items():
         force = -(ks @ u)
         reactions[name] = [float(force[pdofs[:, i]].sum()) for i in range(3)]
     applied = [float(f_mech[pdofs[:, i]].sum()) for i in range(3)]
     equilibrium = _equilibrium(reactions, applied, float(np.abs(f_thermal + f_mech).max(initial=0.0)))
+    support_records, cautions = _support_records(domain, space, spec.supports, constraints, residual, pdofs, held,
+                                                 reactions, where)  # cautions' places are relative to the stage
 
-    parts, elements, nodal = recovery.recover(domain, per_part, u, spec.order, load)
-    probes = _probes(domain, spec.order, u, elements["von_mises"], spec.probes, where)
+    found = features.find(domain, spec.supports)
+    parts, elements, nodal, nodal_safety = recovery.recover(domain, per_part, u, spec.order, load, found)
+    probes = _probes(domain, spec.order, u, nodal, load, spec.probes, where)
+    lines = _lines(domain, spec.order, u, nodal, load, spec.lines)
     return StressField(
         displacement=u[pdofs], order=spec.order, stress=elements["stress"], von_mises=elements["von_mises"],
         tresca=elements["tresca"], principal=elements["principal"], safety=elements["safety"], parts=parts, reactions=reactions,
         equilibrium=equilibrium, probes=probes, solver=record, nodal=nodal, notices=tuple(domain.notices),
+        supports=support_records, cautions=tuple(cautions) + _singular_cautions(parts), lines=lines,
+        features=found.counts(), nodal_safety=nodal_safety,
+        temperature=recovery.at_points(domain, spec.order, load) if load is not None else np.zeros(0),
+        reference=np.asarray(load.reference, float) if load is not None else np.zeros(0),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
-              "stress_order": "xx, yy, zz, yz, xz, xy"},
+              "stress_order": "xx, yy, zz, yz, xz, xy", "preload": bolts,
+              "recovery": "L2 projection within each part (nodal peaks; quadrature maximum beside)"},
     )
 
 
@@ -201,6 +252,60 @@ def _solve_constrained(K, f, constraints, space, spec):
     return T @ ul, T @ (Kl @ ul - fl), record
 
 
+def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, where, tie):
+    """The constrained solve (tied dofs following their partners, ``tie``), repeated by the contact
+    active set when a support is of kind contact.  Returns u, residual, solve record, the final
+    constraints and the contact records."""
+    reduced, load = tie.reduce(K), tie.load(f)
+
+    def solve(c):
+        w, r, record = _solve_constrained(reduced, load, ties.with_tied(c, tie), space, spec)
+        return tie.expand(w), r, record
+
+    surfaces = supports.normal_surfaces(domain, space, spec.supports, ("contact",), where)
+    if not surfaces:
+        return (*solve(constraints), constraints, {})
+    springs = [space.facet_dofs(domain.surfaces[n]) for n, s in spec.supports.items() if s.kind == "spring"]
+    spring_points = np.concatenate(springs) if springs else np.zeros(0, dtype=np.int64)
+
+    def motion(current):
+        try:
+            supports.free_motions(domain, current, xyz, spring_points, where)
+        except errors.PhysicsError as exc:
+            raise errors.PhysicsError([p + " (the contact supports lift off where they would pull, and what is left "
+                                       "does not hold the body)" for p in exc.problems]) from None
+
+    return supports.contact_solve(solve, rows, pdofs, len(f), surfaces, motion, where)
+
+
+def _support_records(domain, space, given, constraints, residual, pdofs, held, reactions, where):
+    """Per-support records (kind, force [N], normal supports' pressing and pulling totals [N], contact and
+    separated area [m^2]) and caution records for bilateral normal supports that pull on the body."""
+    records = {name: {"kind": s.kind, "force_N": reactions.get(name, [0.0, 0.0, 0.0])} for name, s in given.items()}
+    own = constraints.point_reactions(residual, pdofs)
+    cautions = []
+    for c in supports.normal_surfaces(domain, space, given, supports.NORMAL_KINDS, where):
+        pressed = supports.pressing(c, *own.get(c.name, (np.zeros(0, dtype=np.int64), np.zeros((0, 3)))))
+        rec = records[c.name] | supports.normal_forces(pressed) | {"normal": c.normal.tolist()}
+        if c.name in held:
+            contact, separated = supports.contact_areas(domain, c, held[c.name]["held"])
+            rec |= {"contact_area_m2": contact, "separated_area_m2": separated,
+                    "iterations": held[c.name]["iterations"],
+                    "least_pressing_N": float(np.min(held[c.name]["pressing_N"][np.isin(c.points, held[c.name]["held"])],
+                                                     initial=np.inf)),
+                    "penetration_max_m": float(held[c.name]["penetration_m"].max(initial=0.0))}
+        elif not given[c.name].mirror and rec["tension_N"] > TENSION_SHARE * (rec["tension_N"] + rec["compression_N"]):
+            cautions.append({
+                "code": "support_pulls", "where": f"supports.{c.name}",
+                "message": (f"support {c.name} ({given[c.name].kind}) pulls the body with {rec['tension_N']:.4g} N "
+                            f"in total (it presses with {rec['compression_N']:.4g} N elsewhere); a surface resting "
+                            "on a foundation cannot pull: use kind = \"contact\", which lets it lift off (or, if "
+                            "it is a plane of symmetry of the model, say so with mirror = true)"),
+                "data": {"support": c.name, "tension_N": rec["tension_N"], "compression_N": rec["compression_N"]}})
+        records[c.name] = rec
+    return records, cautions
+
+
 def rigid_body_modes(x: np.ndarray) -> np.ndarray:
     """(3 n, 6) translations and rotations about the centroid of the points x (3, n) [m]."""
     n = x.shape[1]
@@ -222,11 +327,76 @@ def _equilibrium(reactions: dict, applied: list[float], nodal_scale: float) -> d
             "relative": float(np.linalg.norm(total) / scale) if scale > 0 else 0.0}
 
 
-def _probes(domain, order, u, vm, probes, where) -> dict[str, dict]:
+def _probes(domain, order, u, nodal, load, probes, where) -> dict[str, dict]:
+    """Probe values from the recovered field (``recovery.sample``)."""
     if not probes:
         return {}
     names, points, cells = fem.probe_points(domain, probes, where)
-    dofs, phi = fem.probe_weights(domain, order, points, cells)
-    disp = np.einsum("ip,ipc->cp", phi, u.reshape(-1, 3)[dofs])
-    return {n: {"displacement_m": disp[:, i].tolist(), "von_mises_Pa": float(vm[cells[i]])}
-            for i, n in enumerate(names)}
+    values = recovery.sample(domain, order, nodal, load, u, points, cells, _part_names(domain))
+    return dict(zip(names, values))
+
+
+def _part_names(domain) -> np.ndarray:
+    return np.array(sorted(domain.parts), dtype=object)[domain.part_ids()]
+
+
+def _line_problems(lines, where) -> list[str]:
+    problems = []
+    for name, line in lines.items():
+        try:
+            start, end, count = np.asarray(line[0], float), np.asarray(line[1], float), line[2]
+            ok = start.shape == end.shape == (3,) and isinstance(count, (int, np.integer)) and count >= 2
+        except (TypeError, ValueError, IndexError):
+            ok = False
+        if not ok:
+            problems.append(f"{where}.lines.{name}: give start and end as (x, y, z) and points as a whole number >= 2")
+        elif np.allclose(start, end):
+            problems.append(f"{where}.lines.{name}: start and end are the same point")
+    return problems
+
+
+def _lines(domain, order, u, nodal, load, lines) -> dict[str, list[dict]]:
+    """Values along each line at equally spaced points; a point outside the mesh (a cavity, beyond the
+    body) is listed with its position only ("outside": true)."""
+    out = {}
+    finder = domain.mesh.element_finder()
+    names = _part_names(domain)
+    for name, (start, end, count) in lines.items():
+        s = np.linspace(0.0, 1.0, int(count))
+        x = np.asarray(start, float)[:, None] * (1 - s) + np.asarray(end, float)[:, None] * s
+        length = float(np.linalg.norm(np.subtract(end, start)))
+        cells = np.full(len(s), -1)
+        for i in range(len(s)):
+            try:
+                cells[i] = finder(*x[:, i : i + 1])[0]
+            except ValueError:
+                pass
+        inside = np.flatnonzero(cells >= 0)
+        values = dict(zip(inside.tolist(), recovery.sample(domain, order, nodal, load, u, x[:, inside],
+                                                           cells[inside], names) if len(inside) else []))
+        out[name] = [{"distance_m": float(s[i] * length), "x_m": x[:, i].tolist()}
+                     | (values[i] | {"outside": False} if i in values else {"outside": True}) for i in range(len(s))]
+    return out
+
+
+def _singular_cautions(parts: dict) -> tuple[dict, ...]:
+    """A caution record for each part with a peak (von Mises, largest principal, utilisation) at a
+    singular feature; data names the flagged quantities and the feature of the first.  ``where`` is
+    relative to the stage (a stored result must not name the workflow file it was computed for)."""
+    out = []
+    for part, f in parts.items():
+        flagged = [q for q in ("von_mises", "principal_max", "utilisation") if q in f and f[q]["near"] is not None]
+        if not flagged:
+            continue
+        near = f[flagged[0]]["near"]
+        uses = ("the safety factor uses the peak away from such features" if "utilisation" in flagged else
+                "the safety factor's own peak is away from them")
+        out.append({"code": "singular_peak", "where": f"parts.{part}",
+                    "message": (f"the peak {', '.join(q.replace('_', ' ') for q in flagged)} of {part} lies "
+                                f"{near['distance_m'] * 1e3:.3g} mm from a {near['code'].replace('_', ' ')} "
+                                f"({near['owner']}), where the elastic stress is singular and grows with refinement; "
+                                f"{uses}; judge the feature itself by its real shape (fillet radius) or by a "
+                                "convergence study"),
+                    "data": {"part": part, "quantities": [q.removesuffix("_max") for q in flagged],
+                             "feature": near["code"], "owner": near["owner"], "distance_m": near["distance_m"]}})
+    return tuple(out)

@@ -27,7 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__, errors
+from .. import __version__, errors, files
 from ..flow import runner
 from ..flow import workflow as wf
 from ..kinds.stress import SINGULAR_PEAK
@@ -87,6 +87,52 @@ def gci(h: list[float], phi: list[float], safety_factor: float = SAFETY_FACTOR) 
     return out | {"verdict": "converging", "note": note}
 
 
+#: smallest ratio of element sizes between successive meshes (common practice; Celik et al. 2008 ask 1.3)
+MIN_RATIO = 1.1
+#: bytes per tetrahedron of a refined mesh while it is built and written (skfem connectivity, facets, edges;
+#: measured order of magnitude, common practice)
+MESH_BYTES_PER_TET = 400.0
+
+
+def _distinct_files(files: list[Path]) -> None:
+    """The same mesh given twice gives no error estimate (a 0 % change is no convergence)."""
+    from ..flow.store import file_hash
+
+    seen: dict[str, Path] = {}
+    for f in files:
+        digest = file_hash(f)
+        if digest in seen:
+            raise errors.InputError(f"--meshes: {f} is the same mesh as {seen[digest]} (identical content); give "
+                                    "meshes of different sizes, coarse to fine")
+        seen[digest] = f
+
+
+def _room_for(domain: mesh_mod.Domain, levels: int, workflow) -> None:
+    """Refuse, before refining, a number of levels whose finest mesh cannot fit in memory: each level has
+    8 times the tetrahedra (and about 8 times the nodes) of the one before."""
+    from ..stages import solvers
+
+    def need(n: int) -> int:
+        factor = 8 ** (n - 1)
+        nodes, tets = len(domain.points) * factor, len(domain.tetrahedra) * factor
+        solves = [0]
+        for stage in workflow.stages.values():
+            order, comps = getattr(stage, "order", 1), {"stress": 3}.get(stage.kind, 1)
+            unknowns = comps * nodes * (7 if order == 2 else 1)  # P2: vertices and about 6 edges per vertex
+            solves.append(solvers.estimate_memory(unknowns, order, comps, "amg"))
+        return int(max(solves) + MESH_BYTES_PER_TET * tets)
+
+    room = solvers.available_memory()
+    if need(levels) <= room:
+        return
+    fits = max((n for n in range(1, levels) if need(n) <= room), default=1)
+    raise errors.InputError(
+        f"--levels {levels}: the finest mesh would have about {len(domain.tetrahedra) * 8 ** (levels - 1):,} "
+        f"tetrahedra ({8 ** (levels - 1):,} times the workflow's mesh) and needs about {solvers._size(need(levels))}, "
+        f"but {solvers._size(room)} is available; give --levels {fits} or fewer" + (
+            "" if fits >= 3 else " (at least 3 are needed: start from a coarser mesh)"))
+
+
 def refine(domain: mesh_mod.Domain, times: int, folder: Path) -> list[Path]:
     """Write the domain refined uniformly 1..``times`` times as MSH 2.2 files (named groups kept, in the
     domain's length unit); returns their paths."""
@@ -116,9 +162,10 @@ def refine(domain: mesh_mod.Domain, times: int, folder: Path) -> list[Path]:
             tags.append(np.full(len(ids), tag))
             names[name] = np.array([tag, 3])
         file = folder / f"level_{level + 1}.msh"
-        meshio.write(file, meshio.Mesh(p / factor, cells, cell_data={"gmsh:physical": tags,
-                                                                     "gmsh:geometrical": tags}, field_data=names),
-                     file_format="gmsh22", binary=True)
+        with files.replacing_path(file) as tmp:
+            meshio.write(tmp, meshio.Mesh(p / factor, cells, cell_data={"gmsh:physical": tags,
+                                                                        "gmsh:geometrical": tags}, field_data=names),
+                         file_format="gmsh22", binary=True)
         out.append(file)
     return out
 
@@ -165,11 +212,13 @@ def run(path: str | Path, levels: int = 3, meshes: list[str] | None = None, name
             raise errors.InputError(missing)
         if len(files) < 3:
             raise errors.InputError(f"--meshes: give at least 3 mesh files for an observed order, got {len(files)}")
+        _distinct_files(files)
         method = f"a series of {len(files)} mesh files"
     else:
         if levels < 3:
             raise errors.InputError(f"--levels: at least 3 levels are needed for an observed order, got {levels}")
         coarse = mesh_mod.load(base.mesh.file, unit=base.mesh.unit)
+        _room_for(coarse, levels, base)
         say(f"refining {base.mesh.file} {levels - 1} times (x8 tetrahedra each)")
         files = [Path(base.mesh.file).resolve()] + refine(coarse, levels - 1, folder / "meshes")
         method = f"uniform refinement of {Path(base.mesh.file).name}, {levels} levels, ratio 2"
@@ -183,6 +232,12 @@ def run(path: str | Path, levels: int = 3, meshes: list[str] | None = None, name
         volume = float(domain.element_volumes.sum())
         sized.append(((volume / len(domain.tetrahedra)) ** (1 / 3), file, len(domain.tetrahedra), volume))
     sized.sort(key=lambda item: -item[0])
+    for (h1, f1, *_), (h2, f2, *_) in zip(sized, sized[1:]):
+        if h1 / h2 < MIN_RATIO:
+            raise errors.InputError(f"--meshes: {f1.name} and {f2.name} have nearly the same element size (ratio "
+                                    f"{h1 / h2:.3f}); each mesh must be finer than the last by at least {MIN_RATIO} "
+                                    "in h (Celik et al. 2008 recommend more than 1.3), or the error estimate is "
+                                    "meaningless")
     figures = []
     quiet = ["output.vtu=false", "output.figures=false", "output.report=false"]
     for i, (h, file, count, volume) in enumerate(sized):
@@ -210,9 +265,10 @@ def _quantity(name: str, h: list[float], values: list, record: dict) -> dict:
     q |= gci(h, values, SAFETY_FACTOR)
     stage, _, rest = name.partition(".")
     part = rest.split(".")[0]
-    if name.endswith(".von_mises_max_MPa") and any(
-            w["code"] == SINGULAR_PEAK and w["where"] == stage and w["data"].get("part") == part
-            for w in record["levels"][-1]["warning_records"]):
+    quantity = rest.split(".")[-1].removesuffix("_MPa").removesuffix("_max")
+    if any(w["code"] == SINGULAR_PEAK and w["where"] == stage and w["data"].get("part") == part
+           and quantity in w["data"].get("quantities", ["von_mises"])
+           for w in record["levels"][-1]["warning_records"]):
         q |= {"verdict": "singular", "gci_fine": None,
               "note": "the peak lies on a support or on the edge of a bonded interface, where the elastic "
                       "stress is singular and grows with refinement; not a converged value"

@@ -78,6 +78,16 @@ def _up_to_date(task: dict) -> dict | None:
     return previous
 
 
+def local_workers(requested: int | None) -> int:
+    """Worker processes of a local cluster: as requested, at most one per core (more only compete for the
+    cores and memory; 24 workers on 2 cores shut down with errors)."""
+    cores = os.cpu_count() or 1
+    if requested and requested > cores:
+        log.warning("--workers %d is more than the %d cores of this machine; using %d worker processes",
+                    requested, cores, cores)
+    return min(requested or cores, cores)
+
+
 class Executor:
     """Where tasks run: ``serial`` (this process), a new LocalCluster of ``workers`` processes, or the
     Dask scheduler at ``scheduler`` (e.g. tcp://10.0.0.5:8786)."""
@@ -116,7 +126,7 @@ class Executor:
                                         f"({exc}); start one with 'dask scheduler' (docs/studies.md)") from None
             return self
         logging.getLogger("distributed").setLevel(max(logging.WARNING, logging.getLogger().level))
-        self._workers = self.workers or os.cpu_count() or 1
+        self._workers = local_workers(self.workers)
         limits = {v: self.threads for v in THREAD_VARIABLES}
         environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {})) | limits
         with dask.config.set({"distributed.nanny.pre-spawn-environ": environ}):

@@ -146,12 +146,13 @@ def run(path: str | Path, sweep_file: str | None = None, sets: list[str] | None 
     store_root = str(runner.store_root(path, store).resolve())
     quiet = [] if d.variant_outputs else ["output.vtu=false", "output.figures=false", "output.report=false"]
     tasks, problems = [], []
-    for values in combos:
+    for i, values in enumerate(combos):
         vsets = list(sets or []) + [f"{k}={toml_value(v)}" for k, v in values.items()] + quiet
-        try:
-            wf.load(path, vsets)  # every schema error of every variant, before anything runs
-        except errors.InputError as exc:
-            problems += [f"variant {values}: {p}" for p in exc.problems]
+        if i == 0:  # the definition is validated; one variant is checked here, each other one when it runs
+            try:
+                runner.plan(path, vsets, store_root, str(folder / "variants" / variant_id(values)))
+            except errors.InputError as exc:
+                problems += [f"variant {values}: {p}" for p in exc.problems]
         vid = variant_id(values)
         tasks.append({"id": vid, "values": values, "workflow": str(path), "sets": vsets, "store": store_root,
                       "folder": str(folder / "variants" / vid)})

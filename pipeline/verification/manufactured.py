@@ -7,6 +7,7 @@
   2p + 2 against the exact field at its points.  The fields are those of tests/test_heat.py and
   tests/test_stress.py.
 - NAFEMS LE11 through the heat stage: the source -k/r that makes T = r + z needs a function.
+- A two-layer strip lifting off a contact foundation (the contact support is not yet a workflow key).
 """
 
 from __future__ import annotations
@@ -223,6 +224,49 @@ def le11_chain(work, mesh_file):
     ]
 
 
+# ---------------------------------------------------------------------------------------------
+# Lift-off: a two-layer strip on a rigid frictionless foundation under uniform heating
+
+def liftoff(work, n):
+    """Half of a 60 mm two-layer strip (mirror plane x = 0), layers of 1 mm with expansion 10e-6 (below)
+    and 16e-6 1/K (above), nu = 0, heated by 100 K, resting on a contact support under its own weight."""
+    from ..model import mesh as mesh_mod
+    from ..model.materials import from_record
+    from ..stages import mapping, stress
+    from ..stages.supports import Support
+
+    L, t, w, dt, g = 0.03, 1e-3, 3e-3, 100.0, 9.81
+    d = mesh_mod.load(mk.box(work / "liftoff.msh", mk.planes(0, L, n), mk.planes(0, w, 2), mk.planes(0, 2 * t, 4),
+                             parts={"low": (2, 0, t), "high": (2, t, 2 * t)}), unit="m")
+    layer = lambda a: from_record(f"a{a:g}", {"conductivity": 100.0, "youngs_modulus": 68.9e9, "poisson_ratio": 0.0,
+                                              "expansion": a, "density": 2700.0}, "lift-off case")
+    mats = {"low": layer(10e-6), "high": layer(16e-6)}
+    load = mapping.from_function(d, lambda x: 293.15 + dt + 0 * x[0], mapping.MapSpec(293.15), order=1)
+    sup = {"xmin": Support("symmetry", mirror=True), "ymin": Support("symmetry", mirror=True),
+           "zmin": Support("contact")}
+    s = stress.solve(d, load, stress.StressSpec(mats, sup, gravity=(0.0, 0.0, -g), order=2))
+    rec = s.supports["zmin"]
+    p, uz = d.points, s.displacement[: len(d.points), 2]
+    mid = (np.abs(p[:, 2] - t) < 1e-9) & (np.abs(p[:, 1] - w / 2) < 1e-9) & (p[:, 0] < 0.8 * L)
+    curvature = -2 * np.polyfit(p[mid, 0], uz[mid], 2)[0]
+    weight = 2700.0 * L * w * 2 * t * g
+    line = w * (L / n) / 6  # the share of the underside's facets at one line of vertices across the strip
+    t25 = "S. Timoshenko, J. Opt. Soc. Am. 11(3), 1925: 1/rho = 3 da dT / (2h) for equal layers"
+    return [
+        Check("curvature of the mid-plane (free strip value)", "1/m", 3 * 6e-6 * dt / (2 * 2 * t), t25, 1e-2,
+              "as stress_bimetal (P2, two elements per layer, away from the ends); the weight bends it by about "
+              "0.1 % (beam estimate q L^2 / (8 E I))", float(curvature)),
+        Check("contact area (one line of vertices at the ends)", "mm^2", line, "the strip arches up and rests on "
+              "its ends: one line of vertices, a sixth of the facets of the last row", 1e-8,
+              "geometry of the mesh: round-off only", rec["contact_area_m2"]),
+        Check("contact force", "N", weight, "statics: the contact carries the weight", 1e-4,
+              "the solve leaves residual forces of about 1e-10 of the thermal nodal forces (1e-8 N here)",
+              float(s.reactions["zmin"][2])),
+        Check("tension carried by the contact support", "N", 0.0, "compression only (Signorini conditions)",
+              0.0, "none may pull", rec["tension_N"], scale=weight, scale_text="the weight"),
+    ]
+
+
 CASES = [
     heat_case(1, {"quick": (4, 8, 16), "default": (8, 16, 32), "fine": (8, 16, 32)}),
     heat_case(2, {"quick": (2, 4, 8), "default": (4, 8, 16), "fine": (4, 8, 16)}),
@@ -232,4 +276,8 @@ CASES = [
          {"default": "le11_h0.1.msh", "fine": "le11_h0.07.msh"}, le11_chain,
          note="The source -k/r is a function: run through the stage functions. Not run at --quick "
               "(about 15 s on a 2-core machine: it would nearly double that level)."),
+    Case("stress_liftoff", "two-layer strip on a contact foundation under uniform heating (P2, active set)",
+         {"quick": 10, "default": 10, "fine": 20}, liftoff,
+         note="Half strip (mirror plane x = 0), n x 2 x 4 hexahedra of six tetrahedra along, across and "
+              "through; n = 10, 10, 20. Run through the stage functions (contact is not yet a workflow key)."),
 ]
