@@ -280,6 +280,13 @@ class Prepared:
                 "" if self.symmetric else " of the symmetric part")
         self.setup_seconds = time.perf_counter() - start
 
+    def preconditioner(self) -> spla.LinearOperator:
+        """This preparation as a preconditioner for a nearby matrix (an earlier step's): one AMG cycle,
+        or one solve with the kept factorisation."""
+        if self.method == "direct":
+            return spla.LinearOperator(self.A.shape, matvec=self._direct.solve, dtype=float)
+        return self._amg.preconditioner()
+
     @property
     def accel(self) -> str:
         return "cg" if self.symmetric else "gmres"

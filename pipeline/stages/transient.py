@@ -458,7 +458,7 @@ class _Integration:
             if kept.method == "direct":
                 M = LinearOperator(A.shape, matvec=lambda r: kept.solve(r)[0], dtype=float)
             else:
-                M = kept._ml.aspreconditioner(cycle="V")
+                M = kept.preconditioner()
             x, info = cg(A, rhs, rtol=1e-12, atol=0.0, maxiter=REFACTOR, M=M)
             if info == 0:
                 self.record["preconditioned_solves"] += 1
