@@ -99,7 +99,7 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             problems += exc.records
             failed.add(name)
             continue
-        stages.append(kinds.base.finish(planned, where, stage))
+        stages.append(kinds.base.finish(planned, where, stage, ctx))
         ctx.planned[name] = planned
     folder = Path(out) if out else Path(workflow.output.folder)
     where = f"{path}: output.folder" if not out else "--out"

@@ -158,11 +158,15 @@ def interface_inputs(ctx: Context, domain) -> dict:
     return {"interfaces": used} if used else {}
 
 
-def finish(plan: StagePlan, where: str, stage) -> StagePlan:
-    """Plain key inputs (as summary.json holds them) and the key."""
+def finish(plan: StagePlan, where: str, stage, ctx: Context | None = None) -> StagePlan:
+    """Plain key inputs (as summary.json holds them) and the key.  With ``ctx``, the workflow's
+    interfaces that change the stage's mesh (split contacts, ties) are in the key of every kind, so a
+    result computed on the mesh before it was split is never reused on the split one."""
     from ..flow import store
 
     plan.where, plan.stage = where, stage
+    if ctx is not None:
+        plan.inputs = plan.inputs | interface_inputs(ctx, plan.domain)
     plan.inputs = json.loads(store.canonical(plan.inputs))
     plan.key = store.key(plan.inputs)
     return plan

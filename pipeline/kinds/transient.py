@@ -132,6 +132,12 @@ def plan(ctx: base.Context, name: str, stage: TransientStage, where: str) -> bas
         read = {"upstream": up.key}
     problems += [errors.unknown_name("surface", a, ctx.domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in ctx.domain.surfaces]
+    unsupported = [w for w, used in (("cavities (air nodes)", spec.heat.cavities),
+                                     ("[interfaces] contacts and sections", spec.heat.contacts or spec.heat.tied),
+                                     ("radiation_exchange", spec.heat.exchange)) if used]
+    if unsupported or ctx.domain.ties:
+        problems.append(f"{where}: the transient stage does not yet take {', '.join(unsupported or ['tied parts'])}; "
+                        "run those models in a steady heat stage, or leave them out of the transient workflow")
     base.checked(lambda d, s, w: transient.check(d, s, None, w), ctx.domain, spec, where, problems)
     inputs = ctx.base_inputs(NAME, transient.STAGE_VERSION) | {
         "options": stage.model_dump(exclude={"materials", "memory_limit", "source"}),
