@@ -44,6 +44,12 @@ def _parser() -> argparse.ArgumentParser:
     rep = _command(sub, "report", "rebuild the figures and report.html of a results folder, without solving")
     rep.add_argument("folder")
     rep.add_argument("--store", help="stage store folder (default: the one the run used)")
+    cmp = _command(sub, "compare", "compare two results folders: inputs changed, per-part results side by side, "
+                                   "which fields and figures differ; writes compare.html and compare.csv")
+    cmp.add_argument("a", metavar="RESULTS_A")
+    cmp.add_argument("b", metavar="RESULTS_B")
+    cmp.add_argument("--out", default="results/compare", help="folder for compare.html, compare.csv and the "
+                                                              "difference figures (default: results/compare)")
     st = _command(sub, "store", "list the stage store's entries, or remove old ones")
     st.add_argument("--json", action="store_true", help="print the entries as JSON")
     st.add_argument("folder", nargs="?", help="store folder (default: $THERMOCHAIN_STORE, else the user's "
@@ -68,6 +74,7 @@ EXAMPLES = {
     "check": "example:\n  thermochain check workflows/housing_magnesium.toml   # which stages would rerun, and why",
     "schema": "example:\n  thermochain schema > workflow.schema.json   # for an editor's TOML/JSON validation",
     "report": "example:\n  thermochain report results/housing",
+    "compare": "example:\n  thermochain compare results/housing results/housing_magnesium --out results/compare",
     "store": "examples:\n  thermochain store --json\n  thermochain store .thermochain-store --clean 30",
     "materials": "examples:\n  thermochain materials fr4\n  thermochain materials --file my_materials.toml --json",
     "mesh": "example:\n  thermochain mesh cases/housing/housing_coarse.msh --unit mm",
@@ -164,7 +171,7 @@ def _check(args) -> int:
     if args.json:
         _print_json({"workflow": str(plan.path), "store": str(plan.store.root), "folder": str(plan.folder),
                      "mesh": plan.domain.to_dict(),
-                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source, "key": s.key,
+                     "stages": [{"name": s.name, "kind": s.kind, "reads": s.source if not s.sources else list(s.sources), "key": s.key,
                                  "reuse": decisions[s.name][0], "reason": decisions[s.name][1]} for s in plan.stages]})
         return 0
     if not args.quiet:
@@ -172,10 +179,21 @@ def _check(args) -> int:
         print(f"store: {plan.store.root}")
         for s in plan.stages:
             reuse, reason = decisions[s.name]
-            reads = f", reads {s.source}" if s.source else ""
+            reads = f", reads {', '.join(s.reads)}" if s.reads else ""
             print(f"stage {s.name} ({s.kind}{reads}): {'reuse' if reuse else 'run'} - {reason}")
             for note in s.notices:
                 print(f"  note: {note}")
+    return 0
+
+
+def _compare(args) -> int:
+    from .outputs import compare
+
+    record = compare.run(args.a, args.b, args.out)
+    if not args.quiet:
+        for line in record["statements"]:
+            print(line)
+        print(f"comparison: {Path(args.out) / 'compare.html'}")
     return 0
 
 
@@ -298,7 +316,11 @@ def _fmt(value) -> str:
 def _print_run(record: dict) -> None:
     from . import kinds
 
+    from .outputs import verdict
+
     print(f"thermochain {record['thermochain']}: {record['workflow']} ({record['status']}, {record['seconds']:.1f} s)")
+    if record.get("verdict"):
+        print("verdict:\n" + verdict.text(record["verdict"]))
     for name, stage in record["stages"].items():
         print(f"stage {name} ({stage['kind']}): {stage['status']} - {stage['reason']}")
         for line in kinds.hook(stage["kind"], "console")(stage):
@@ -313,7 +335,7 @@ def _print_run(record: dict) -> None:
 
 
 COMMANDS = {"run": _run, "check": _check, "materials": _materials, "mesh": _mesh, "schema": _schema,
-            "store": _store, "report": _report}
+            "store": _store, "report": _report, "compare": _compare}
 COMMANDS |= {"sweep": lambda args: _study("sweep", args), "converge": lambda args: _study("converge", args)}
 
 

@@ -22,6 +22,11 @@ class TemperatureField:
     probes: probe name -> temperature [K].  loads: per-part power records (W and W/m^3).
     adiabatic: surfaces with no boundary condition.  solver: how the system was solved.
     notices: cautions found while solving.  domain_hash: content hash of the mesh file.
+    interfaces: per contact {"name", "parts", "conductance_W_per_m2K", "area_m2", "heat_W" (from the
+    first part to the second), "mean_drop_K" (area mean of T_a - T_b), "max_drop_K" (largest at a node)}.
+    cavities: per cavity {"name", "temperature_K" (the air), "films_W" (surface -> heat into the air),
+    "from_solids_W", "ventilation_W" (m_dot c_p (T_air - T_in)), "ventilation_W_per_K", "inlet_K"}.
+    Cavity films are in ``balance`` with kind "cavity"; contacts are internal and are not.
     """
 
     temperature: np.ndarray
@@ -36,6 +41,8 @@ class TemperatureField:
     notices: tuple[str, ...] = ()
     domain_hash: str = ""
     meta: dict = field(default_factory=dict)
+    interfaces: tuple[dict, ...] = ()
+    cavities: tuple[dict, ...] = ()
 
     @property
     def at_vertices(self) -> np.ndarray:
@@ -61,6 +68,7 @@ class TemperatureField:
             "balance": list(self.balance), "probes": self.probes, "loads": list(self.loads),
             "adiabatic": list(self.adiabatic), "solver": self.solver.to_dict(),
             "notices": list(self.notices), "domain_hash": self.domain_hash, "meta": self.meta,
+            "interfaces": list(self.interfaces), "cavities": list(self.cavities),
         }
         json.dumps(meta, allow_nan=False)  # fails early if anything is not plain data
         return {"temperature": self.temperature}, meta
@@ -74,6 +82,7 @@ class TemperatureField:
             parts=meta["parts"], balance=tuple(meta["balance"]), probes=meta["probes"],
             loads=tuple(meta["loads"]), adiabatic=tuple(meta["adiabatic"]), solver=SolveRecord(**solver),
             notices=tuple(meta["notices"]), domain_hash=meta["domain_hash"], meta=meta.get("meta", {}),
+            interfaces=tuple(meta.get("interfaces", ())), cavities=tuple(meta.get("cavities", ())),
         )
 
     def __repr__(self) -> str:
@@ -212,3 +221,105 @@ class StressField:
         return (f"<StressField P{self.order}, {len(self.displacement)} nodes, |u| max {umax * 1e3:.4g} mm, "
                 f"von Mises max {self.von_mises.max() / 1e6:.4g} MPa, {len(self.parts)} parts, "
                 f"equilibrium {self.equilibrium.get('relative', 0):.1e}>")
+
+
+@dataclass(frozen=True, repr=False)
+class GroupView:
+    """View factors of one group of surfaces (pipeline/stages/view.py).
+
+    facets: the group's facet ids; patch: each facet's patch; area: patch areas [m^2]; F: patch to
+    patch view factors (n, n); surroundings: each patch's view factor to the surroundings (zero in an
+    enclosure); label: each patch's index into labels, the (surface, part) pairs; residuals:
+    reciprocity and summation residuals of the raw and of the corrected matrix."""
+
+    facets: np.ndarray
+    patch: np.ndarray
+    area: np.ndarray
+    F: np.ndarray
+    surroundings: np.ndarray
+    label: np.ndarray
+    labels: tuple[tuple[str, str], ...]
+    enclosure: bool
+    residuals: dict
+
+    @property
+    def surfaces(self) -> tuple[str, ...]:
+        return tuple(dict.fromkeys(s for s, _ in self.labels))
+
+
+@dataclass(frozen=True, repr=False)
+class ViewFactors:
+    """View factors of every group, by name; patch_size [m]; domain_hash of the mesh they belong to."""
+
+    groups: dict[str, GroupView]
+    patch_size: float
+    domain_hash: str = ""
+    meta: dict = field(default_factory=dict)
+
+    ARRAYS = ("facets", "patch", "area", "F", "surroundings", "label")
+
+    def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
+        arrays = {f"{i}_{a}": getattr(g, a) for i, g in enumerate(self.groups.values()) for a in self.ARRAYS}
+        meta = {"groups": [{"name": n, "labels": [list(l) for l in g.labels], "enclosure": g.enclosure,
+                            "residuals": g.residuals} for n, g in self.groups.items()],
+                "patch_size": self.patch_size, "domain_hash": self.domain_hash, "meta": self.meta}
+        json.dumps(meta, allow_nan=False)
+        return arrays, meta
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "ViewFactors":
+        groups = {g["name"]: GroupView(**{a: np.asarray(arrays[f"{i}_{a}"]) for a in cls.ARRAYS},
+                                       labels=tuple(tuple(l) for l in g["labels"]), enclosure=g["enclosure"],
+                                       residuals=g["residuals"])
+                  for i, g in enumerate(meta["groups"])}
+        return cls(groups=groups, patch_size=meta["patch_size"], domain_hash=meta["domain_hash"],
+                   meta=meta.get("meta", {}))
+
+    def __repr__(self) -> str:
+        inner = ", ".join(f"{n}: {len(g.area)} patches" for n, g in self.groups.items())
+        return f"<ViewFactors {inner}; patch size {self.patch_size * 1e3:g} mm>"
+
+
+@dataclass(frozen=True, repr=False)
+class CycleField:
+    """Ranges between two or more states of one structure (the ``cycle`` stage).
+
+    states: the stress stages compared, in order.  Per element (element means of each state's stress):
+    equivalent_range: max over pairs of states of von Mises(sigma_b - sigma_a) [Pa]; pair: (n, 2) the
+    states (indices into ``states``) of that largest range; von_mises_range: max - min of von Mises over
+    the states [Pa]; component_range: (n, 6) max - min of each component xx, yy, zz, yz, xz, xy [Pa];
+    mean: (n, 6) (sigma_a + sigma_b) / 2 of the governing pair [Pa]; strain_range: (n,) von Mises
+    equivalent of the mechanical (elastic) strain difference of that pair [-]; state_max, state_min:
+    (n,) the states of the largest and smallest von Mises.  parts: part -> figures from the recovered
+    nodal field of each state (``stages.cycle``).  life: per named joint, the life estimates.
+    """
+
+    states: tuple[str, ...]
+    equivalent_range: np.ndarray
+    pair: np.ndarray
+    von_mises_range: np.ndarray
+    component_range: np.ndarray
+    mean: np.ndarray
+    strain_range: np.ndarray
+    state_max: np.ndarray
+    state_min: np.ndarray
+    parts: dict[str, dict]
+    life: dict[str, dict] = field(default_factory=dict)
+    meta: dict = field(default_factory=dict)
+
+    ARRAYS = ("equivalent_range", "pair", "von_mises_range", "component_range", "mean", "strain_range",
+              "state_max", "state_min")
+
+    def to_arrays(self) -> tuple[dict[str, np.ndarray], dict]:
+        meta = {"states": list(self.states), "parts": self.parts, "life": self.life, "meta": self.meta}
+        json.dumps(meta, allow_nan=False)
+        return {n: getattr(self, n) for n in self.ARRAYS}, meta
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray], meta: dict) -> "CycleField":
+        return cls(states=tuple(meta["states"]), parts=meta["parts"], life=meta.get("life", {}),
+                   meta=meta.get("meta", {}), **{n: np.asarray(arrays[n]) for n in cls.ARRAYS})
+
+    def __repr__(self) -> str:
+        return (f"<CycleField {' / '.join(self.states)}: {len(self.equivalent_range)} elements, equivalent range "
+                f"max {self.equivalent_range.max() / 1e6:.4g} MPa, {len(self.parts)} parts>")

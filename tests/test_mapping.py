@@ -163,3 +163,69 @@ def test_the_stress_free_temperature_is_required_and_the_message_says_why():
     d = block(n=2)
     with pytest.raises(errors.InputError, match=r"map.reference: give the stress-free temperature .* no default"):
         mapping.from_function(d, lambda x: 300.0 + 0 * x[0], mapping.MapSpec(None))
+
+
+def _two_block_cloud(tmp_path, labelled: bool):
+    """A CSV field on two blocks x < 0.01 (cold) and x > 0.01 (hot, +100 K) with the interface points
+    given once per block: a 100 K jump (an invented field, linear within each block)."""
+    rows = []
+    g = np.linspace(0, 0.02, 5)
+    for part, xs, offset in (("cold", np.linspace(0, 0.01, 4), 0.0), ("hot", np.linspace(0.01, 0.02, 4), 100.0)):
+        for x in xs:
+            for y in g:
+                for z in g:
+                    t = 300.0 + 500.0 * x + 300.0 * y - 200.0 * z + offset
+                    rows.append(f"{x},{y},{z},{t}" + (f",{part}" if labelled else ""))
+    path = tmp_path / "field.csv"
+    path.write_text("x,y,z,T" + (",part" if labelled else "") + "\n" + "\n".join(rows) + "\n")
+    return path
+
+
+def _exact_jump(x):
+    return 300.0 + 500.0 * x[0] + 300.0 * x[1] - 200.0 * x[2]
+
+
+def test_a_labelled_field_keeps_its_jump_on_each_side(tmp_path):
+    """Linear interpolation reproduces a field linear in each part exactly (round-off), so with part
+    labels both sides of a 100 K jump map exactly onto a structural mesh split at the interface;
+    without labels the duplicates are counted as a jump that was smeared."""
+    halves = lambda m: meshes.layers(m, 0, {"cold": (0, 0.01), "hot": (0.01, 0.02)})  # noqa: E731
+    bonded = block(n=5, jitter=0.0, parts=halves)
+    split = mesh_mod.join(bonded, {"c": mesh_mod.Joint("contact", parts=("cold", "hot"))})
+    load = mapping.from_file(_two_block_cloud(tmp_path, True), split, mapping.MapSpec(300.0, order=2))
+    space = heat.fem.space(split, 2)
+    hot = np.zeros(space.N, dtype=bool)
+    hot[np.unique(space.element_dofs[:, split.parts["hot"]])] = True
+    expected = _exact_jump(space.doflocs) + 100.0 * hot
+    np.testing.assert_allclose(load.temperature, expected, rtol=0, atol=1e-9)
+    assert load.diagnostics["by_part"] and load.diagnostics["duplicate_points_with_jump"] == 25
+    assert load.diagnostics["shared_nodes_with_jump"] == 0
+    # a structural mesh that shares the interface nodes cannot hold the jump: counted
+    shared = mapping.from_file(_two_block_cloud(tmp_path, True), bonded, mapping.MapSpec(300.0))
+    assert shared.diagnostics["shared_nodes_with_jump"] == 25
+    assert shared.diagnostics["largest_shared_jump_K"] == pytest.approx(100.0, rel=1e-9)
+    plain = mapping.from_file(_two_block_cloud(tmp_path, False), split, mapping.MapSpec(300.0, order=2))
+    assert not plain.diagnostics["by_part"] and plain.diagnostics["duplicate_points_with_jump"] == 25
+    assert np.abs(plain.temperature - expected).max() > 10.0  # smeared: why labels matter
+
+
+def test_cross_mesh_transfer_reads_each_part_from_its_own_part():
+    """A contact resistance makes a jump in the thermal field; on a finer structural mesh split the
+    same way, each part reads its own side, so both sides of the jump survive: the plane wall with
+    contact resistance ([INC] sec. 3.1.4, Incropera et al. 6th ed.) is linear per side, reproduced
+    by the interpolation to round-off."""
+    halves = lambda m: meshes.layers(m, 0, {"a": (0, 0.01), "b": (0.01, 0.02)})  # noqa: E731
+    joint = {"c": mesh_mod.Joint("contact", parts=("a", "b"))}
+    thermal = mesh_mod.join(block(n=5, jitter=0.0, parts=halves), joint)
+    structural = mesh_mod.join(block(n=9, jitter=0.0, parts=halves), joint)
+    spec = heat.HeatSpec({"a": solid(10.0), "b": solid(10.0)}, fixed_temperature={"xmin": 400.0, "xmax": 300.0},
+                         contacts={"c": 1000.0})
+    f = heat.solve(thermal, spec)
+    load = mapping.transfer(f, thermal, structural, mapping.MapSpec(300.0))
+    q = 100.0 / (0.01 / 10 + 1e-3 + 0.01 / 10)
+    x = structural.points[:, 0]
+    in_b = np.zeros(len(x), dtype=bool)
+    in_b[np.unique(structural.tetrahedra[structural.parts["b"]])] = True
+    expected = np.where(in_b, 300.0 + q * (0.02 - x) / 10, 400.0 - q * x / 10)
+    np.testing.assert_allclose(load.temperature, expected, rtol=0, atol=1e-9)
+    assert load.diagnostics["by_part"] and load.diagnostics["outside"] == 0

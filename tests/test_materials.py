@@ -23,12 +23,13 @@ def test_the_library_covers_housings_boards_and_power_modules():
 @pytest.mark.parametrize("name", NEEDED)
 def test_every_value_carries_its_source(name):
     m = materials.library()[name]
-    for prop in ["conductivity", "youngs_modulus", "poisson_ratio", "expansion", "density",
+    for prop in ["conductivity", "youngs_modulus", "poisson_ratio", "expansion", "density", "specific_heat",
                  "yield_strength", "tensile_strength", "shear_modulus"]:
         value = getattr(m, prop)
         if value not in (None, ()):
             assert m.sources.get(prop), f"{name}.{prop} has no source"
     assert m.yield_strength or m.tensile_strength
+    assert m.specific_heat is not None and 100 < m.specific_heat < 3000, "J/(kg*K): the transient stage needs it"
 
 
 def test_values_are_si_and_plausible():

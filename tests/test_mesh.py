@@ -40,10 +40,37 @@ def test_the_length_unit_is_applied_once_and_must_be_known():
         mesh_mod.load(DATA / "boxes_41.msh", unit="mmm")
 
 
-def test_parts_that_touch_without_shared_nodes_are_named():
+def test_parts_that_touch_without_shared_nodes_are_found_with_their_area():
+    """Boxes meshed without fragmenting (tests/data/split_boxes_41.msh): the 10 x 10 mm faces touch."""
     d = mesh_mod.load(DATA / "split_boxes_41.msh", unit="mm")
     assert not d.interfaces
-    assert any("'lower' and 'upper' touch" in n and "share no nodes" in n for n in d.notices)
+    touch = d.touching[("lower", "upper")]
+    assert touch.area == pytest.approx(1e-4, rel=1e-12)
+    (line,) = mesh_mod.touching_problems(d, "heat")
+    assert "parts 'lower' and 'upper' touch on 0.0001 m^2" in line and "kind = 'tie'" in line
+    assert not mesh_mod.load(DATA / "boxes_41.msh", unit="mm").touching  # fragmented: shared nodes
+
+
+def test_splitting_an_interface_duplicates_its_nodes_and_keeps_a_third_part_bonded():
+    """Three slabs a | b | c along z and a column d through all of them along one edge: splitting a/b
+    gives b its own copies of the a/b nodes, except where d meets the interface (stays shared)."""
+    m = meshes.tensor(np.linspace(0, 1, 4), np.linspace(0, 1, 4), np.linspace(0, 1, 4))
+    c = m.p[:, m.t].mean(axis=1)
+    column = (c[0] < 1 / 3) & (c[1] < 1 / 3)
+    parts = {"a": np.flatnonzero(~column & (c[2] < 1 / 3)), "b": np.flatnonzero(~column & (c[2] > 1 / 3)),
+             "d": np.flatnonzero(column)}
+    d = mesh_mod.from_meshio(meshes.to_meshio(m, parts), unit="m")
+    s = mesh_mod.join(d, {"ab": mesh_mod.Joint("contact", parts=("a", "b"))})
+    contact = s.contacts["ab"]
+    pairs = contact.node_pairs
+    moved = pairs[pairs[:, 0] != pairs[:, 1]]
+    assert len(moved) == len(pairs) - 3  # the three nodes where the column meets the interface stay shared
+    np.testing.assert_array_equal(s.points[moved[:, 0]], s.points[moved[:, 1]])
+    assert ("a", "b") not in s.interfaces and ("a", "d") in s.interfaces and ("b", "d") in s.interfaces
+    assert s.bodies[0] == 1  # still one body: the contact conducts
+    for name in d.surfaces:
+        assert s.facet_areas(s.surfaces[name]).sum() == pytest.approx(d.facet_areas(d.surfaces[name]).sum())
+    np.testing.assert_array_equal(s.part_ids(), d.part_ids())
 
 
 def test_unknown_names_list_the_valid_ones_and_the_closest():

@@ -56,7 +56,7 @@ def test_figures_are_not_blank_and_show_the_field_range(demo_run):
     out, record = demo_run
     heat = record["stages"]["heat"]
     figures = {f["file"]: f for st in record["stages"].values() for f in st.get("figures", [])}
-    assert {"heat_outside.png", "heat_cut.png", "heat_parts.png", "stress_von_mises.png"} <= set(figures)
+    assert {"heat_outside.png", "heat_section.png", "heat_parts.png", "stress_von_mises.png"} <= set(figures)
     for name in figures:
         pixels = image(out / name)
         assert pixels.std() > 0.02, f"{name} looks blank"
@@ -73,7 +73,7 @@ def test_figures_are_not_blank_and_show_the_field_range(demo_run):
     lo, hi = figures["stress_von_mises.png"]["range"]
     assert vm.min() - 1e-9 <= lo <= hi <= vm.max() + 1e-9 and hi > 0.5 * vm.max()
     assert figures["stress_von_mises.png"]["exaggeration"] > 1
-    assert figures["heat_cut.png"]["part"] == "board"
+    assert figures["heat_section.png"]["part"] == "board"
     assert heat["figures"][0]["unit"] == "degC"
 
 
@@ -120,16 +120,27 @@ document.getElementById('f').onload = function() {{
   const d = document.getElementById('f').contentDocument;
   const imgs = Array.from(d.images);
   const loaded = imgs.filter(i => i.complete && i.naturalWidth > 0).length;
+  const h2 = Array.from(d.querySelectorAll('h2')).map(h => h.textContent);
   document.getElementById('out').textContent = 'images=' + imgs.length + ' loaded=' + loaded +
-     ' tables=' + d.querySelectorAll('table').length;
+     ' tables=' + d.querySelectorAll('table').length + ' first=' + h2[0] + ' headings=|' + h2.join('|') + '|';
 }};
 </script></body></html>""")
-    result = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                             "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                             "--allow-file-access-from-files", f"--user-data-dir={tmp_path / 'profile'}",
-                             "--virtual-time-budget=10000", "--dump-dom", probe.as_uri()],
+    flags = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+             "--disable-background-networking", "--disable-component-update", "--disable-sync",
+             "--allow-file-access-from-files", f"--user-data-dir={tmp_path / 'profile'}"]
+    result = subprocess.run(flags + ["--virtual-time-budget=10000", "--dump-dom", probe.as_uri()],
                             capture_output=True, text=True, timeout=120)
     figures = sum(len(st.get("figures", [])) for st in record["stages"].values())
     assert f"images={figures} loaded={figures}" in result.stdout, result.stdout[-2000:] + result.stderr[-2000:]
-    tables = int(result.stdout.split("tables=")[1].split("<")[0])
+    tables = int(result.stdout.split("tables=")[1].split(" ")[0])
     assert tables >= 8
+    # the verdict is the first section, and every input table is there
+    assert "first=Verdict" in result.stdout, result.stdout[-2000:]
+    for heading in ("Loads and boundary conditions", "Materials (values used)"):
+        assert f"|{heading}|" in result.stdout
+    # a screenshot for a person to look at (kept in pytest's temporary folder; its path is printed)
+    shot = tmp_path / "report.png"
+    subprocess.run(flags + ["--hide-scrollbars", "--window-size=1280,2600", f"--screenshot={shot}", report],
+                   capture_output=True, text=True, timeout=120)
+    assert shot.is_file() and shot.stat().st_size > 10_000
+    print(f"report screenshot: {shot}")

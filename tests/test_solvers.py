@@ -296,3 +296,15 @@ def test_the_k_of_t_newton_tangent_goes_to_gmres_and_keeps_newton_convergence():
     target = U(t1) - (U(t1) - U(t2)) / 2
     t_mid = t0 + (-1 + np.sqrt(1 + 2 * beta * target / k0)) / beta
     assert amg.probes["mid"] == pytest.approx(t_mid, abs=1e-4 * (t1 - t2))
+
+
+@pytest.mark.parametrize("method", ["direct", "amg"])
+def test_a_preparation_preconditions_cg_on_a_nearby_matrix(method):
+    """The transient stage reuses an earlier step's preparation as CG's preconditioner."""
+    from scipy.sparse.linalg import cg
+
+    A = heat_matrix(12)
+    nearby = (A + 0.01 * sp.diags(A.diagonal())).tocsr()
+    b = np.ones(A.shape[0])
+    x, info = cg(nearby, b, rtol=1e-12, atol=0.0, maxiter=100, M=solvers.Prepared(A, method).preconditioner())
+    assert info == 0 and np.linalg.norm(nearby @ x - b) <= 1e-12 * np.linalg.norm(b)

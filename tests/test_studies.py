@@ -125,7 +125,9 @@ def test_local_cluster_sweep_computes_heat_once_per_ambient_records_failures_and
     hot = [float(r["heat.chip.max_degC"]) for r in ok if r["stages.heat.convection.top_air.ambient"] == "35 degC"]
     cool = [float(r["heat.chip.max_degC"]) for r in ok if r["stages.heat.convection.top_air.ambient"] == "25 degC"]
     assert len(set(hot)) == 1 and len(set(cool)) == 1 and hot[0] > cool[0]  # one heat result per ambient
-    assert {p["file"] for p in record["plots"]} == {"heat.chip.max_degC.png", "stress.safety_factor_min.png"}
+    # one plot per figure against the swept value, and the tornado chart of the two axes
+    assert {p["file"] for p in record["plots"]} == {"heat.chip.max_degC.png", "stress.safety_factor_min.png",
+                                                     "tornado.png"}
     assert all((folder / p["file"]).stat().st_size > 1000 for p in record["plots"])
     page = (folder / "sweep.html").read_text()
     assert "Caution" in page and "unobtainium" in page and "<h2>Sweep</h2>" in page

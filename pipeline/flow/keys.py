@@ -16,10 +16,12 @@ from . import workflow as wf
 #: the placeholder shown for the names of a table's entries, by the key that holds them
 PLACEHOLDER = {"parts": "PART", "power": "PART", "generation": "PART", "reference_by_part": "PART",
                "flux": "SURFACE", "convection": "SURFACE", "radiation": "SURFACE", "fixed_temperature": "SURFACE",
-               "supports": "SURFACE", "pressure": "SURFACE", "force": "SURFACE", "stages": "NAME",
-               "probes": "NAME"}
+               "supports": "SURFACE", "pressure": "SURFACE", "force": "SURFACE", "stages": "NAME", "ambient": "SURFACE",
+               "probes": "NAME", "films": "SURFACE", "preload": "SECTION", "interfaces": "NAME", "cavities": "NAME",
+               "lines": "NAME"}
 UNITS = {"K": "K", "m": "m", "W": "W", "W/m**3": "W/m³", "W/m**2": "W/m²", "W/(m**2*K)": "W/(m²·K)", "Pa": "Pa",
-         "N": "N", "N/m**3": "N/m³", "m/s**2": "m/s²", "B": "bytes"}
+         "N": "N", "N/m**3": "N/m³", "m/s**2": "m/s²", "B": "bytes", "s": "s",
+         "m**2*K/W": "m²·K/W", "W/K": "W/K"}
 MARKER = re.compile(r"(<!-- keys: (?P<section>[\w-]+) -->\n)(.*?)(<!-- /keys -->)", re.S)
 
 

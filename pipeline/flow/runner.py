@@ -59,7 +59,8 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
             if not Path(section.file).is_file():
                 raise errors.MeshError(f"{path}: {key}.file: mesh file not found: {section.file} (a path relative "
                                        "to the workflow file)")
-            domains[k] = _load_mesh(Path(section.file), section.unit)
+            domains[k] = _joined(_load_mesh(Path(section.file), section.unit), workflow, path,
+                                 strict=section is workflow.mesh)
         return domains[k]
 
     if workflow is None:  # the mesh or the parts table itself is unusable: nothing to check names against
@@ -89,7 +90,7 @@ def plan(path: str | Path, sets: list[str] | None = None, store: str | None = No
     for name in _order(workflow):
         stage = workflow.stages[name]
         where = f"{path}: stages.{name}"
-        if getattr(stage, "source", None) in failed:
+        if any(s in failed for s in kinds.base.upstream_names(stage)):
             failed.add(name)  # its source's problems are reported already
             continue
         try:
@@ -128,6 +129,15 @@ def _load_mesh(file: Path, unit: str) -> mesh_mod.Domain:
     return _MESHES[k]
 
 
+def _joined(domain: mesh_mod.Domain, workflow, path: Path, strict: bool) -> mesh_mod.Domain:
+    """The domain with the workflow's [interfaces] applied (split contacts, ties); on a mesh other than
+    the workflow's own, only the joints whose parts it has."""
+    joints = {name: mesh_mod.Joint(j.kind, tuple(j.parts) if j.parts else None, j.surface)
+              for name, j in workflow.interfaces.items()
+              if strict or (set(j.parts or ()) <= set(domain.parts) and (j.surface is None or j.surface in domain.surfaces))}
+    return mesh_mod.join(domain, joints, f"{path}: interfaces") if joints else domain
+
+
 def _order(workflow) -> list[str]:
     """Stage names with every source before the stages that read it (file order otherwise)."""
     done: list[str] = []
@@ -135,9 +145,9 @@ def _order(workflow) -> list[str]:
     def visit(name: str, seen: tuple = ()) -> None:
         if name in done or name in seen:
             return
-        source = getattr(workflow.stages[name], "source", None)
-        if source in workflow.stages:
-            visit(source, seen + (name,))
+        for source in kinds.base.upstream_names(workflow.stages[name]):
+            if source in workflow.stages:
+                visit(source, seen + (name,))
         done.append(name)
 
     for name in workflow.stages:
@@ -180,7 +190,7 @@ def _reason(s: StagePlan, hit: bool, forced: bool, previous: dict | None, change
         return f"{s.name} reused: an entry for exactly these inputs is in the store"
     if old is None:
         return f"{s.name} computed: not in the store"
-    return f"{s.name} recomputed: {_what_changed(old, s.inputs, s.source, changed)}"
+    return f"{s.name} recomputed: {_what_changed(old, s.inputs, ', '.join(s.reads) or None, changed)}"
 
 
 def _what_changed(old: dict, new: dict, source: str | None, changed: set[str]) -> str:
@@ -256,7 +266,8 @@ def _execute(p: Plan, sets, rerun, say, started):
         t0 = time.perf_counter()
         reuse, reason = plan_decisions[s.name]
         kind = kinds.get(s.kind)
-        entry = {"kind": s.kind, "key": s.key, "reads": s.source, "materials": s.materials}
+        entry = {"kind": s.kind, "key": s.key, "reads": s.source if not s.sources else list(s.sources),
+                 "materials": s.materials}
         try:
             with p.store.lock(s.kind, s.key):  # a second run waits here, then finds the entry
                 got = None if s.name in (rerun or []) else p.store.get(s.kind, s.key)
@@ -271,7 +282,8 @@ def _execute(p: Plan, sets, rerun, say, started):
                     for note in s.notices:
                         say(f"{s.name}: note: {note.message}")
                     log.info("%s: computing (%s)", s.name, s.kind)
-                    upstream = (results[s.source], domains[s.source]) if s.source else None
+                    upstream = [(results[n], domains[n]) for n in s.sources] if s.sources else \
+                        (results[s.source], domains[s.source]) if s.source else None
                     result, status = kind.compute(s, upstream), "computed"
                     arrays, meta = result.to_arrays()
                     p.store.put(s.kind, s.key, arrays, meta, {"inputs": s.inputs, "stage": s.name,
@@ -351,12 +363,21 @@ def _material_sources(p: Plan) -> dict[str, str]:
     return out
 
 
+def _value_sources(p: Plan) -> dict[str, dict[str, str]]:
+    """material -> property -> its source (the report footnotes each value with it)."""
+    out: dict[str, dict[str, str]] = {}
+    for s in p.stages:
+        for part, material in getattr(s.spec, "materials", {}).items():
+            out.setdefault(s.materials[part], {}).update(material.sources)
+    return out
+
+
 def _header(p: Plan) -> dict:
     d = p.domain
     return {
         "thermochain": __version__, "workflow": str(p.path), "workflow_path": str(p.path.resolve()),
         "title": p.workflow.title, "store": str(p.store.root.resolve()),
-        "material_sources": _material_sources(p),
+        "material_sources": _material_sources(p), "material_value_sources": _value_sources(p),
         "mesh": {"file": p.workflow.mesh.file, "unit": p.workflow.mesh.unit, "nodes": len(d.points),
                  "tetrahedra": len(d.tetrahedra), "bounding_box_m": [b.tolist() for b in d.bounding_box],
                  "part_ids": publish.vtu.part_legend(d), "notices": list(d.notices)},

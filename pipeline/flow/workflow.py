@@ -16,7 +16,8 @@ import typing
 from pathlib import Path
 from typing import Annotated, Literal, Union
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, WithJsonSchema, create_model
+from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, WithJsonSchema, create_model,
+                      model_validator)
 
 from .. import errors, files
 from ..model.finishes import FINISHES
@@ -153,6 +154,39 @@ class LineSection(Strict):
     points: Annotated[int, Field(ge=2)] = Field(default=50, description="equally spaced points, ends included")
 
 
+class InterfaceSection(Strict):
+    """A joint between two parts (docs/workflow.md, [interfaces]): by its parts or by a surface group on it."""
+
+    kind: Literal["contact", "tie", "insulated", "section"] = Field(
+        description="contact: split the shared interface, a conductance acts across it (sides stay together in "
+                    "the stress stage); tie: parts meshed apart, heat and displacement continuous (mortar); "
+                    "insulated: no heat crosses; section: a bolt's pretension section (a planar interface "
+                    "across the shank between two parts) for stages.NAME.preload")
+    parts: Annotated[list[str], Field(min_length=2, max_length=2)] | None = Field(
+        default=None, description="the two parts (for a tie: the part that follows first)")
+    surface: str | None = Field(default=None, description="or a surface group lying on the interface")
+    conductance: quantity("W/(m**2*K)", ge=0) | None = Field(default=None, description="contact conductance h_c")
+    resistance: quantity("m**2*K/W", gt=0) | None = Field(default=None, description="or contact resistance R''")
+
+    @model_validator(mode="after")
+    def _values(self):
+        if (self.parts is None) == (self.surface is None):
+            raise ValueError("give either parts = [a, b] or surface = NAME")
+        given = (self.conductance is not None) + (self.resistance is not None)
+        if self.kind == "contact" and given != 1:
+            raise ValueError("a contact needs exactly one of conductance [W/(m^2*K)] or resistance [m^2*K/W]")
+        if self.kind != "contact" and given:
+            raise ValueError(f"a {self.kind} joint takes no conductance or resistance")
+        return self
+
+    @property
+    def heat_conductance(self) -> float:
+        """h_c [W/(m^2*K)]: the given one, 1/R'', or 0 for an insulated interface."""
+        if self.kind in ("insulated", "section"):
+            return 0.0
+        return self.conductance if self.conductance is not None else 1.0 / self.resistance
+
+
 class WorkflowBase(Strict):
     """The workflow file's tables except ``stages``, whose members come from the stage kinds."""
 
@@ -166,6 +200,9 @@ class WorkflowBase(Strict):
                                           "reports temperature, displacement and stress (as for probes) at equally spaced points along it; "
                                           "points outside the mesh are listed with `outside = true`")
     output: OutputSection = OutputSection()
+    interfaces: dict[str, InterfaceSection] = Field(
+        default_factory=dict, description="joints between parts: contact conductance, ties of parts meshed apart, "
+                                          "insulated interfaces")
     # read by `thermochain sweep` only (pipeline/studies/sweep.py validates it); no stage reads it, so it
     # is in no store key
     sweep: dict | None = Field(default=None, description="a parameter study: grid and paired value lists "
@@ -239,6 +276,8 @@ def _absolute_paths(raw: dict, base: Path) -> None:
     def fix(table, key):
         if isinstance(table, dict) and isinstance(table.get(key), str):
             table[key] = str(base / table[key])
+        elif isinstance(table, dict) and isinstance(table.get(key), dict):  # one file per part
+            table[key] = {k: str(base / v) if isinstance(v, str) else v for k, v in table[key].items()}
 
     fix(raw.get("mesh"), "file")
     fix(raw.get("output"), "folder")

@@ -1,6 +1,6 @@
 """Stage kinds: one module per kind owns everything that is particular to it.
 
-A kind module (``heat``, ``map``, ``stress`` here; more from the ``thermochain.kinds`` entry-point
+A kind module (``view``, ``heat``, ``transient``, ``instant``, ``map``, ``stress``, ``cycle`` here; more from the ``thermochain.kinds`` entry-point
 group or ``register``) defines:
 
 - ``NAME`` (the word in the workflow file, the store and the summary) and ``Schema``, its workflow
@@ -10,9 +10,11 @@ group or ``register``) defines:
 - ``plan(ctx, name, stage, where) -> StagePlan``: the Spec from the validated section, every input
   checked once (raise ``InputError`` with all problems), the key inputs;
 - ``compute(plan, upstream) -> result``: calls the pure stage function (``upstream`` is the
-  ``(result, domain)`` of its source, or None);
+  ``(result, domain)`` of its source, or None; a kind that reads several stages, like ``cycle``, gives
+  its Schema an ``upstream_names()`` method and its plan ``sources``, and receives a list in that order);
 - ``summary(plan, result) -> dict``: the figures summary.json shows for it (units in the key names);
 - ``outputs(domain, result) -> (point_data, cell_data) | None``: the arrays of its VTU file;
+- ``tables(folder, name, entry, result) -> list[str]``: the data files (CSV) it writes, by name;
 - ``figures(folder, name, entry, result, domain, context) -> list[dict]``: its PNG figures;
 - ``notices(name, entry, domain, context) -> list[Notice]``: warnings a reader must not miss;
 - ``report(entry, context) -> list[str]``: its HTML tables; ``console(entry) -> list[str]``: its lines
@@ -28,13 +30,13 @@ import importlib
 from importlib.metadata import entry_points
 from types import ModuleType
 
-from . import base, heat, map, stress  # noqa: A004 - 'map' is the stage kind's name
+from . import base, cycle, heat, instant, map, stress, transient, view  # noqa: A004 - 'map' is the stage kind's name
 
-_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (heat, map, stress)}
+_REGISTRY: dict[str, ModuleType] = {m.NAME: m for m in (view, heat, transient, instant, map, stress, cycle)}
 _loaded_plugins = False
 
 #: hooks a kind may leave out, with what the runner does then
-OPTIONAL = {"outputs": base.no_outputs, "figures": base.no_figures, "notices": base.no_notices,
+OPTIONAL = {"outputs": base.no_outputs, "tables": base.no_tables, "figures": base.no_figures, "notices": base.no_notices,
             "report": base.no_report, "console": base.no_console, "quantities": base.no_quantities}
 
 
@@ -53,7 +55,7 @@ def register(module: ModuleType) -> ModuleType:
 
 def unregister(name: str) -> None:
     """Remove a kind added by ``register`` (the shipped kinds stay)."""
-    if name in ("heat", "map", "stress"):
+    if name in ("view", "heat", "transient", "instant", "map", "stress", "cycle"):
         raise ValueError(f"the shipped stage kind {name!r} cannot be removed")
     _REGISTRY.pop(name, None)
     from ..flow import workflow

@@ -33,6 +33,12 @@ class StagePlan:
     stage: object = None
     prepared: dict = field(default_factory=dict)
     notices: list = field(default_factory=list)
+    sources: tuple[str, ...] = ()  # a stage that reads several (e.g. a cycle's states); then source is None
+
+    @property
+    def reads(self) -> tuple[str, ...]:
+        """The names of the stages whose results ``compute`` receives."""
+        return self.sources or ((self.source,) if self.source else ())
 
 
 @dataclass
@@ -64,6 +70,15 @@ class OutputContext:
     limits_degC: dict[str, float]
     required_safety_factor: float
     record: dict
+
+
+def upstream_names(stage) -> list[str]:
+    """The stages a workflow section reads: its ``upstream_names()`` (several, e.g. a cycle's states) or
+    its ``source``."""
+    if hasattr(stage, "upstream_names"):
+        return stage.upstream_names()
+    source = getattr(stage, "source", None)
+    return [source] if source else []
 
 
 def workflow_file(where: str) -> str:
@@ -135,6 +150,14 @@ def upstream(ctx: Context, source: str, result_type, where: str) -> StagePlan:
     return ctx.planned[source]
 
 
+def interface_inputs(ctx: Context, domain) -> dict:
+    """The workflow's [interfaces] as key inputs of a stage on ``domain`` (they change its mesh: split
+    contacts, ties, conductances); nothing when the workflow has none, so other keys stay as they were."""
+    used = {n: j.model_dump() for n, j in sorted(ctx.workflow.interfaces.items())
+            if n in domain.contacts or n in domain.ties or set(j.parts or ()) <= set(domain.parts)}
+    return {"interfaces": used} if used else {}
+
+
 def finish(plan: StagePlan, where: str, stage) -> StagePlan:
     """Plain key inputs (as summary.json holds them) and the key."""
     from ..flow import store
@@ -148,6 +171,10 @@ def finish(plan: StagePlan, where: str, stage) -> StagePlan:
 # defaults of the optional hooks
 def no_outputs(domain, result):
     return None
+
+
+def no_tables(folder, name, entry, result) -> list[str]:
+    return []
 
 
 def no_figures(folder, name, entry, result, domain, context) -> list[dict]:

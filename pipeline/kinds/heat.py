@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Annotated, Literal
 
 from pydantic import Field
@@ -9,11 +10,11 @@ from pydantic import Field
 from .. import errors
 from ..fields import TemperatureField
 from ..flow.workflow import (Emissivity, FilmCoefficient, Generation, HeatFluxDensity, Power, Strict, Temperature,
-                             MemoryLimit, SolverMethod, quantity)
+                             MemoryLimit, SolverMethod, quantity)  # noqa: I001
 from ..model import finishes
 from ..model.units import celsius
 from ..notices import Notice
-from ..stages import heat
+from ..stages import exchange, heat
 from . import base
 
 NAME = "heat"
@@ -37,9 +38,23 @@ class RadiationSection(Strict):
     surroundings: Temperature = Field(description="temperature of the surroundings")
 
 
+class ExchangeSection(Strict):
+    emissivity: dict[str, Emissivity] = Field(description="by surface or part of the group (a part's value wins): "
+                                              "0..1 or a finish name")
+    surroundings: Temperature | None = Field(default=None, description="temperature of the surroundings an open "
+                                             "group sees (none for an enclosure)")
+
+
 class FluxSection(Strict):
     per_area: HeatFluxDensity | None = Field(default=None, description="into the body")
     total: Power | None = Field(default=None, description="into the body, spread over the surface")
+
+
+class CavitySection(Strict):
+    films: dict[str, FilmCoefficient] = Field(description="film coefficient of a surface to the enclosed air")
+    ventilation: quantity("W/K", ge=0) = Field(default=0.0, description="m_dot c_p of the air flowing through; "
+                                               "0: sealed")
+    inlet: Temperature = Field(default=293.15, description="temperature of the incoming air")
 
 
 class HeatStage(Strict):
@@ -53,10 +68,19 @@ class HeatStage(Strict):
     flux: dict[str, FluxSection] = Field(default_factory=dict, description="heat flux into the body")
     convection: dict[str, ConvectionSection] = Field(default_factory=dict)
     radiation: dict[str, RadiationSection] = Field(default_factory=dict)
+    view: str | None = Field(default=None, description="the view stage whose view factors radiation_exchange uses")
+    radiation_exchange: dict[str, ExchangeSection] = Field(default_factory=dict, description="grey exchange "
+                                                           "among the surfaces of a view-factor group, by group")
     fixed_temperature: dict[str, Temperature] = Field(default_factory=dict, description="fixed temperature; not combined with another condition on the same surface")
+    cavities: dict[str, CavitySection] = Field(default_factory=dict, description="enclosed air as an unknown "
+                                               "temperature: its films' net exchange balances the ventilation")
     max_iterations: Annotated[int, Field(gt=0)] = Field(default=30, description="Newton iterations at most (nonlinear problems)")
     adiabatic: list[str] = Field(default_factory=list, description="surfaces meant to be adiabatic (symmetry "
                                  "planes, insulation): not warned about")
+
+    def upstream_names(self) -> list[str]:
+        """The stages this one reads: its view factors' stage."""
+        return [self.view] if self.view else []
 
 
 Schema = HeatStage
@@ -64,15 +88,10 @@ Schema = HeatStage
 
 def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.StagePlan:
     domain = ctx.domain
-    mats, names, problems = base.materials(ctx, stage, domain, where)
-    spec = heat.HeatSpec(
-        materials=mats, power=stage.power, generation=stage.generation,
-        flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
-        convection={s: heat.Convection(c.film_coefficient, c.ambient, c.exponent, c.reference_difference)
-                    for s, c in stage.convection.items()},
-        radiation=_radiation(stage, where, problems),
-        fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
-        memory_limit=stage.memory_limit, max_iterations=stage.max_iterations)
+    spec, names, problems = heat_spec(ctx, stage, where)
+    mats = spec.materials
+    if stage.view and spec.view is None:  # a misnamed view stage: its groups cannot be checked
+        spec = replace(spec, exchange={})
     problems += [errors.unknown_name("surface", a, domain.surfaces, f"{where}.adiabatic")
                  for a in stage.adiabatic if a not in domain.surfaces]
     base.checked(heat.check, domain, spec, where, problems)
@@ -80,8 +99,57 @@ def plan(ctx: base.Context, name: str, stage: HeatStage, where: str) -> base.Sta
     inputs = ctx.base_inputs(NAME, heat.STAGE_VERSION) | {
         "options": stage.model_dump(exclude={"materials", "memory_limit"}),
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
-        "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes}
-    return base.StagePlan(name, NAME, domain, spec, inputs, materials=names)
+        "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes} | base.interface_inputs(ctx, domain)
+    if stage.view:
+        inputs["upstream"] = ctx.planned[stage.view].key
+    return base.StagePlan(name, NAME, domain, spec, inputs, materials=names, source=stage.view)
+
+
+def _view(ctx: base.Context, stage: HeatStage, where: str, problems: list):
+    """The view stage's spec (its groups) while planning; the solve gets its view factors."""
+    if stage.view is None:
+        return None
+    planned = ctx.planned.get(stage.view)
+    if planned is None or planned.kind != "view":
+        problems.append(errors.unknown_name("view stage", stage.view, [n for n, k in ctx.kinds.items() if k == "view"],
+                                            f"{where}.view"))
+        return None
+    return planned.spec
+
+
+def _exchange(stage: HeatStage, where: str, problems: list) -> dict:
+    out = {}
+    for group, x in stage.radiation_exchange.items():
+        eps = {}
+        for k, e in x.emissivity.items():
+            try:
+                eps[k], _ = finishes.emissivity(e, f"{where}.radiation_exchange.{group}.emissivity.{k}")
+            except errors.InputError as exc:
+                problems += exc.records
+        out[group] = exchange.ExchangeGroup(eps, x.surroundings)
+    return out
+
+
+def heat_spec(ctx: base.Context, stage: HeatStage, where: str, power: bool = True):
+    """The HeatSpec of a heat section (also the boundaries of a transient stage, ``power=False``:
+    its power is a profile): (spec, material names by part, problems found)."""
+    mats, names, problems = base.materials(ctx, stage, ctx.domain, where)
+    spec = heat.HeatSpec(
+        materials=mats, power=stage.power if power else {}, generation=stage.generation,
+        flux={s: heat.HeatFlux(f.per_area, f.total) for s, f in stage.flux.items()},
+        convection={s: heat.Convection(c.film_coefficient, c.ambient, c.exponent, c.reference_difference)
+                    for s, c in stage.convection.items()},
+        radiation=_radiation(stage, where, problems),
+        fixed_temperature=stage.fixed_temperature, probes=ctx.probes, order=stage.order, solver=stage.solver,
+        memory_limit=stage.memory_limit, max_iterations=stage.max_iterations,
+        contacts={n: j.heat_conductance for n, j in ctx.workflow.interfaces.items()
+                  if n in ctx.domain.contacts and j.kind != "section"},
+        tied=tuple(n for n, j in ctx.workflow.interfaces.items() if n in ctx.domain.contacts and j.kind == "section"),
+        cavities={n: heat.Cavity(dict(c.films), c.ventilation, c.inlet)
+                  for n, c in getattr(stage, "cavities", {}).items()},
+        exchange=_exchange(stage, where, problems) if hasattr(stage, "radiation_exchange") else {},
+        view=_view(ctx, stage, where, problems) if hasattr(stage, "view") else None)
+    return spec, names, problems
 
 
 def _radiation(stage: HeatStage, where: str, problems: list) -> dict:
@@ -97,7 +165,8 @@ def _radiation(stage: HeatStage, where: str, problems: list) -> dict:
 
 
 def compute(plan: base.StagePlan, upstream) -> TemperatureField:
-    return heat.solve(plan.domain, plan.spec, where=plan.where, checked=True)
+    spec = replace(plan.spec, view=upstream[0]) if upstream else plan.spec
+    return heat.solve(plan.domain, spec, where=plan.where, checked=upstream is None)
 
 
 def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
@@ -108,12 +177,15 @@ def summary(plan: base.StagePlan, field: TemperatureField) -> dict:
         "parts_degC": {p: {k: round(celsius(v), 4) for k, v in s.items()} for p, s in field.parts.items()},
         "probes_degC": {p: round(celsius(v), 4) for p, v in field.probes.items()},
         "heat_balance_W": [dict(r) for r in field.balance],
+        "radiative_paths_W": [dict(r) for r in field.meta.get("radiative_paths", [])],
         "heat_in_W": field.heat_in,
         "relative_imbalance": field.imbalance,
         "loads": [dict(r) for r in field.loads],
         "adiabatic_surfaces": list(field.adiabatic),
         "adiabatic_intended": list(plan.inputs["options"].get("adiabatic", [])),
         "solver": field.solver.to_dict() | {"history": []},
+        "interfaces": [dict(r) for r in field.interfaces],
+        "cavities": [dict(c, temperature_degC=round(celsius(c["temperature_K"]), 4)) for c in field.cavities],
         "notices": [str(n) for n in found],
         "notice_records": [Notice.of(n).to_dict() for n in found],
     }
@@ -123,7 +195,7 @@ def _conductivity_notices(plan: base.StagePlan, field: TemperatureField) -> list
     """A temperature-dependent conductivity that is not positive somewhere in its part's solved temperature
     range: the field there is not physical (heat would flow from cold to hot)."""
     out = []
-    for part, material in sorted(plan.spec.materials.items()):
+    for part, material in sorted(getattr(plan.spec, "materials", {}).items()):  # an instant's spec has none
         if not material.conductivity_varies or part not in field.parts:
             continue
         low, high = field.parts[part]["min"], field.parts[part]["max"]
@@ -147,9 +219,10 @@ def outputs(domain, field: TemperatureField):
 def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
     from ..outputs import figures as fig
 
-    return [fig.temperature_outside(folder / f"{name}_outside.png", domain, field),
-            fig.temperature_cut(folder / f"{name}_cut.png", domain, field),
-            fig.part_temperatures(folder / f"{name}_parts.png", entry["parts_degC"], context.limits_degC)]
+    inside = fig.temperature_inside(folder / f"{name}_inside.png", domain, field)
+    return [fig.temperature_outside(folder / f"{name}_outside.png", domain, field)] + ([inside] if inside else []) + [
+        fig.temperature_section(folder / f"{name}_section.png", domain, field),
+        fig.part_temperatures(folder / f"{name}_parts.png", entry["parts_degC"], context.limits_degC)]
 
 
 def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
@@ -165,6 +238,11 @@ def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
             out.append(Notice("heat.over_limit", f"part {part} reaches {s['max']:.1f} degC, above its limit "
                               f"{limits[part]:.1f} degC", name,
                               {"part": part, "max_degC": s["max"], "limit_degC": limits[part]}))
+    for r in heat.supplying(entry["heat_balance_W"]):
+        out.append(Notice("heat.ambient_supplies", f"surface '{r['name']}' ({r['kind']} to a fixed ambient) supplies "
+                          f"{r['heat_in_W']:+.4g} W to the solids; if it faces enclosed air, model the air as a "
+                          "cavity (stages.NAME.cavities), whose temperature follows from its balance", name,
+                          {"surface": r["name"], "kind": r["kind"], "heat_in_W": r["heat_in_W"]}))
     out += [Notice.of(n).at(name) for n in entry.get("notice_records", [])]
     return out
 
@@ -180,8 +258,22 @@ def report(entry, context: base.OutputContext) -> list[str]:
     out.append("<p>Heat balance (positive into the body):</p>" + table(
         ["kind", "load or surface", "heat in [W]"],
         [[r["kind"], r["name"], f"{r['heat_in_W']:+.5g}"] for r in entry["heat_balance_W"]]))
+    if entry.get("radiative_paths_W"):
+        out.append("<p>Radiative paths (net, from the first to the second):</p>" + table(
+            ["group", "from", "to", "net [W]"],
+            [[r["group"], r["from"], r["to"], f"{r['W']:+.4g}"] for r in entry["radiative_paths_W"]]))
     out.append(f"<p>Relative imbalance {entry['relative_imbalance']:.1e}. Adiabatic surfaces: "
                f"{escape(', '.join(entry['adiabatic_surfaces']) or 'none')}.</p>")
+    if entry.get("interfaces"):
+        out.append("<p>Interfaces with a contact conductance (heat from the first part to the second):</p>" + table(
+            ["interface", "parts", "h_c [W/(m^2*K)]", "area [mm^2]", "heat [W]", "mean drop [K]", "largest drop [K]"],
+            [[r["name"], " / ".join(r["parts"]), f"{r['conductance_W_per_m2K']:.4g}", f"{r['area_m2'] * 1e6:.4g}",
+              f"{r['heat_W']:+.4g}", f"{r['mean_drop_K']:.4g}", f"{r['max_drop_K']:.4g}"] for r in entry["interfaces"]]))
+    if entry.get("cavities"):
+        out.append("<p>Enclosed air:</p>" + table(
+            ["cavity", "air [degC]", "from the solids [W]", "ventilation [W]"],
+            [[c["name"], f"{c['temperature_degC']:.2f}", f"{c['from_solids_W']:+.4g}", f"{c['ventilation_W']:+.4g}"]
+             for c in entry["cavities"]]))
     if entry.get("probes_degC"):
         out.append(table(["probe", "temperature [degC]"], [[p, f"{t:.2f}"] for p, t in entry["probes_degC"].items()]))
     return out
@@ -192,6 +284,11 @@ def console(entry) -> list[str]:
              for part, s in entry["parts_degC"].items()]
     lines += [f"  probe {probe:<10} {t:8.2f} degC" for probe, t in entry["probes_degC"].items()]
     lines += [f"  {r['kind']:<18} {r['name']:<16} {r['heat_in_W']:+10.4f} W" for r in entry["heat_balance_W"]]
+    lines += [f"  interface {r['name']:<14} {r['heat_W']:+10.4f} W  drop mean {r['mean_drop_K']:.3f} K, "
+              f"largest {r['max_drop_K']:.3f} K" for r in entry.get("interfaces", [])]
+    lines += [f"  cavity {c['name']:<17} air {c['temperature_degC']:8.2f} degC; from the solids "
+              f"{c['from_solids_W']:+.3g} W, ventilation {c['ventilation_W']:+.3g} W" for c in entry.get("cavities", [])]
+    lines += [f"  radiation {r['from']} -> {r['to']}: {r['W']:+.4f} W" for r in entry.get("radiative_paths_W", [])]
     lines.append(f"  relative imbalance {entry['relative_imbalance']:.1e}; "
                  f"adiabatic: {', '.join(entry['adiabatic_surfaces']) or 'none'}")
     return lines
@@ -205,4 +302,8 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
         out |= {f"{name}.{part}.{k}_degC": s[k] for k in ("max", "mean", "min")}
     out |= {f"{name}.probes.{p}_degC": t for p, t in entry.get("probes_degC", {}).items()}
     out[f"{name}.heat_in_W"] = entry.get("heat_in_W")
+    for r in entry.get("interfaces", []):
+        out |= {f"{name}.interfaces.{r['name']}.heat_W": r["heat_W"],
+                f"{name}.interfaces.{r['name']}.mean_drop_K": r["mean_drop_K"]}
+    out |= {f"{name}.cavities.{c['name']}.temperature_degC": c["temperature_degC"] for c in entry.get("cavities", [])}
     return out

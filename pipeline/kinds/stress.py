@@ -48,6 +48,8 @@ class StressStage(Strict):
         default_factory=dict, description="total force spread evenly over the surface")
     gravity: Annotated[list[Acceleration], Field(min_length=3, max_length=3)] | None = Field(
         default=None, description="gravity acting on each part's density")
+    preload: dict[str, Force] = Field(default_factory=dict, description="pretension section ([interfaces] kind = "
+                                      "'section') -> bolt preload, tension positive")
 
 
 Schema = StressStage
@@ -65,14 +67,15 @@ def plan(ctx: base.Context, name: str, stage: StressStage, where: str) -> base.S
     spec = stress.StressSpec(mats, sups, pressure=stage.pressure,
                              force={s: tuple(f) for s, f in stage.force.items()},
                              gravity=tuple(stage.gravity) if stage.gravity else None, probes=ctx.probes,
-                             order=stage.order, solver=stage.solver, memory_limit=stage.memory_limit, lines=lines)
+                             order=stage.order, solver=stage.solver, memory_limit=stage.memory_limit, lines=lines,
+                             preload=dict(stage.preload))
     base.checked(stress.check, domain, spec, where, problems)
     base.before_solving(supports.check, domain, spec.supports, where)
     inputs = ctx.base_inputs(NAME, stress.STAGE_VERSION) | {
         "options": stage.model_dump(exclude={"materials", "source", "memory_limit"}),
         "materials": {p: m.reads(*READS) for p, m in sorted(mats.items())},
         "mesh": [domain.source_hash, domain.unit], "probes": ctx.probes, "lines": lines,
-        "upstream": upstream.key if upstream else None}
+        "upstream": upstream.key if upstream else None} | base.interface_inputs(ctx, domain)
     plan = base.StagePlan(name, NAME, domain, spec, inputs, source=stage.source, materials=names,
                           prepared={"required_safety_factor": ctx.workflow.output.required_safety_factor})
     hard = stress.risk(domain, spec, where)  # a stiffness contrast or a nearly incompressible part
@@ -108,6 +111,7 @@ def summary(plan: base.StagePlan, field: StressField) -> dict:
         "cautions": [dict(c) for c in field.cautions],
         "support_surfaces": [n for n, v in sups.items() if v.kind != "minimal"],
         "fixed_supports": [n for n, v in sups.items() if v.kind == "fixed"],
+        "bolts": {n: dict(b) for n, b in field.meta.get("preload", {}).items()},
     }
 
 
@@ -179,10 +183,49 @@ def outputs(domain, field: StressField):
 def figures(folder, name, entry, field, domain, context: base.OutputContext) -> list[dict]:
     from ..outputs import figures as fig
 
-    out = [fig.von_mises_deformed(folder / f"{name}_von_mises.png", domain, field)]
-    if any(f["safety_factor"] is not None for f in entry["parts"].values()):
-        out.append(fig.safety_factors(folder / f"{name}_safety.png", entry["parts"], context.required_safety_factor))
+    parts, required = entry["parts"], context.required_safety_factor
+    out = []
+    if any(f["safety_factor"] is not None for f in parts.values()):
+        out.append(fig.safety_factors(folder / f"{name}_safety.png", parts, required))
+    singular = _feature_vertices(domain, entry)
+    for part in verdict_parts(parts, required):
+        f = parts[part]
+        quantity = "principal" if (f.get("criterion") or "").startswith("brittle") else "von_mises"
+        flags = f.get("principal_max" if quantity == "principal" else "von_mises")
+        out.append(fig.stress_part(folder / f"{name}_{part}.png", domain, field, part, singular, f.get("strength_Pa"),
+                                   quantity, flags if isinstance(flags, dict) else None))
+    board = fig.most_bonded(domain)
+    if fig.plate_like(domain, board):
+        out.append(fig.warpage(folder / f"{name}_warpage_{board}.png", domain, field, board))
+    for line, records in getattr(field, "lines", {}).items():
+        out.append(fig.line_records(folder / f"{name}_line_{line}.png", line, records))
+    out.append(fig.von_mises_deformed(folder / f"{name}_von_mises.png", domain, field))
     return out
+
+
+def _feature_vertices(domain, entry: dict) -> np.ndarray:
+    """Vertices [ids] that lie on a singular feature of the model (stages/features.py: bimaterial free
+    edges, re-entrant edges, clamp rims, point supports), for the figures' markers and colour ranges."""
+    from ..stages import features
+
+    found = features.find(domain, {n: Support(r["kind"]) for n, r in entry.get("supports", {}).items()})
+    dist, _ = found.nearest(domain.points)
+    return np.flatnonzero(dist <= 1e-9 * float(np.linalg.norm(np.ptp(domain.points, axis=0))))
+
+
+#: At most this many parts get a stress figure of their own.
+FIGURE_PARTS = 4
+
+
+def verdict_parts(parts: dict, required: float) -> list[str]:
+    """The parts whose stress carries the verdict: those below the required safety factor and the one
+    with the lowest (most critical first, at most FIGURE_PARTS); without safety factors, the part with
+    the highest von Mises peak."""
+    rated = sorted((f["safety_factor"], p) for p, f in parts.items() if f["safety_factor"] is not None)
+    if not rated:
+        return [max(parts, key=lambda p: parts[p]["von_mises_max_Pa"])] if parts else []
+    chosen = [p for sf, p in rated if sf < required] or [rated[0][1]]
+    return chosen[:FIGURE_PARTS]
 
 
 #: code of the notice "a part's peak lies where the elastic stress is singular" (read by the
@@ -235,6 +278,20 @@ def report(entry, context: base.OutputContext) -> list[str]:
          "n/a" if f["safety_factor"] is None else f"{f['safety_factor']:.3g} ({f.get('verdict_uses')})",
          verdict(None if f["verdict"]["verdict"] == "no criterion" else f["verdict"]["verdict"] == "pass")]
         for p, f in entry["parts"].items()]))
+    if entry.get("bolts"):
+        out.append("<p>Bolts (pretension sections; preload set with no other load, then held; the clamp force "
+                   "on the members equals the bolt force; joint design itself, e.g. by VDI 2230, is not "
+                   "checked):</p>" + table(["bolt", "preload [N]", "after the loads [N]", "shortening [um]"], [
+                       [n, f"{b['preload_N']:.5g}", f"{b['force_N']:.5g}", f"{b['shortening_m'] * 1e6:.4g}"]
+                       for n, b in entry["bolts"].items()]))
+    if entry.get("probes"):
+        out.append("<p>Probes (the recovered field at each point):</p>" + table(
+            ["probe", "von Mises [MPa]", "largest principal [MPa]", "displacement [um]", "stress xx, yy, zz [MPa]"], [
+                [name, f"{v['von_mises_Pa'] / 1e6:.4g}",
+                 f"{v['principal_Pa'][0] / 1e6:.4g}" if v.get("principal_Pa") else "-",
+                 ", ".join(f"{c * 1e6:.3g}" for c in v["displacement_m"]),
+                 ", ".join(f"{c / 1e6:.4g}" for c in v["stress_Pa"][:3]) if v.get("stress_Pa") else "-"]
+                for name, v in entry["probes"].items()]))
     eq = entry["equilibrium"]
     rows = []
     for k, r in entry["reactions_N"].items():
@@ -271,6 +328,8 @@ def console(entry) -> list[str]:
                      f"{'n/a' if sf is None else f'{sf:.2f}'} ({(f['criterion'] or 'no strength').split(':')[0]}): "
                      f"{v}{flag}")
     lines.append(f"  verdict: {entry['verdict']['verdict']} (required safety factor {entry['verdict']['required']:g})")
+    lines += [f"  bolt {n:<15} preload {b['preload_N']:10.1f} N; after the loads {b['force_N']:10.1f} N (clamp force "
+              f"{b['force_N']:.1f} N)" for n, b in entry.get("bolts", {}).items()]
     lines.append(f"  reactions {', '.join(f'{k} {[round(v, 3) for v in r]} N' for k, r in entry['reactions_N'].items())};"
                  f" equilibrium {entry['equilibrium']['relative']:.1e}")
     return lines
@@ -293,6 +352,7 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
         if f["safety_factor"] is not None:
             factors.append(f["safety_factor"])
     out[f"{name}.safety_factor_min"] = min(factors) if factors else None
+    out |= {f"{name}.bolts.{n}.force_N": b["force_N"] for n, b in entry.get("bolts", {}).items()}
     out[f"{name}.displacement_max_mm"] = entry["displacement_max_m"] * 1e3
     for p, v in entry.get("probes", {}).items():
         out[f"{name}.probes.{p}.von_mises_MPa"] = v["von_mises_Pa"] / 1e6

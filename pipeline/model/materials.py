@@ -1,7 +1,7 @@
 """Material records, the shipped library, user libraries and per-part orientation.
 
 Values are SI: conductivity W/(m*K), moduli and strengths Pa, expansion 1/K, density kg/m^3,
-temperatures K.  Orthotropic properties are principal values in the material axes; a part's
+specific heat J/(kg*K), temperatures K.  Orthotropic properties are principal values in the material axes; a part's
 ``axes`` (rows = material x, y, z directions in model coordinates) turn them into tensors.
 """
 
@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import errors, files
+from . import curves as curves_mod
 
 #: Properties every material must give, with their units.
 REQUIRED = {
@@ -24,6 +25,7 @@ REQUIRED = {
     "density": "kg/m^3",
 }
 OPTIONAL = {
+    "specific_heat": "J/(kg*K)",
     "shear_modulus": "Pa",
     "yield_strength": "Pa",
     "tensile_strength": "Pa",
@@ -31,12 +33,18 @@ OPTIONAL = {
     "shear_strength_axes": "Pa",
     "valid_from": "K",
     "valid_to": "K",
+    "expansion_base": "K",
 }
 UNITS = REQUIRED | OPTIONAL
-TEXT_KEYS = {"title", "kind", "brittle", "note", "sources"}
+TEXT_KEYS = {"title", "kind", "brittle", "note", "sources", "expansion_convention"}
 #: temperature-dependent conductivity: a table of rows [T, k] or [T, kx, ky, kz] (K, W/(m*K)), or
 #: polynomial coefficients c0, c1, ... with k = sum c_i T^i (T in K)
 CURVE_KEYS = {"conductivity_table", "conductivity_polynomial"}
+#: temperature-dependent stiffness and expansion (``curves``): PROP_table rows [T, v] (expansion of an
+#: orthotropic material also [T, ax, ay, az]) or PROP_polynomial [c0, c1, ...]; expansion_convention
+#: "instantaneous" (default) or "mean" from expansion_base [K].  The constant of a property with a
+#: curve may be left out: it is then the curve's value at 293.15 K (the instantaneous one for expansion)
+MECHANICAL_CURVE_KEYS = {f"{p}_{form}" for p in curves_mod.PROPERTIES for form in ("table", "polynomial")}
 KINDS = ("isotropic", "orthotropic")
 #: a material file larger than this is refused unread
 MAX_FILE_BYTES = 4 << 20
@@ -54,6 +62,7 @@ class Material:
     poisson_ratio: tuple[float, ...]
     expansion: tuple[float, ...]
     density: float
+    specific_heat: float | None = None
     shear_modulus: tuple[float, ...] = ()
     yield_strength: float | None = None
     tensile_strength: float | None = None
@@ -67,6 +76,9 @@ class Material:
     axes: tuple[tuple[float, ...], ...] = ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0))
     conductivity_table: tuple[tuple[float, ...], ...] = ()
     conductivity_polynomial: tuple[float, ...] = ()
+    curves: dict = field(default_factory=dict)  # property -> curves.Curve (youngs_modulus, poisson_ratio, expansion)
+    expansion_convention: str = "instantaneous"
+    expansion_base: float | None = None
 
     def __repr__(self) -> str:
         k = "k(T)" if self.conductivity_varies else f"k {', '.join(f'{v:.4g}' for v in self.conductivity)} W/(m K)"
@@ -84,6 +96,22 @@ class Material:
                              "source": self.sources.get(prop, "")}
         return {"name": self.name, "title": self.title, "kind": self.kind, "brittle": self.brittle,
                 "note": self.note, "properties": out}
+
+    @property
+    def stiffness_varies(self) -> bool:
+        """E or nu depends on temperature."""
+        return "youngs_modulus" in self.curves or "poisson_ratio" in self.curves
+
+    def expansion_strain(self, t, t_ref) -> np.ndarray:
+        """(3, ...) principal thermal strains from the stress-free temperature t_ref to t [K] (in the
+        material axes), by the expansion's convention (``curves``)."""
+        t, t_ref = np.broadcast_arrays(np.asarray(t, float), np.asarray(t_ref, float))
+        if "expansion" not in self.curves:
+            a = np.broadcast_to(np.asarray(self.expansion, float), (3,))
+            return a.reshape(3, *([1] * t.ndim)) * (t - t_ref)
+        eps = curves_mod.expansion_strain(self.curves["expansion"], self.expansion_convention, self.expansion_base,
+                                          t, t_ref)
+        return np.broadcast_to(eps, (3, *t.shape))
 
     @property
     def conductivity_varies(self) -> bool:
@@ -154,6 +182,11 @@ class Material:
         if "conductivity" in props and self.conductivity_varies:
             out |= {"conductivity_table": self.conductivity_table,
                     "conductivity_polynomial": self.conductivity_polynomial}
+        for prop in props:
+            if prop in self.curves:
+                out[f"{prop}_curve"] = {"table": self.curves[prop].table, "polynomial": self.curves[prop].polynomial}
+        if "expansion" in props and "expansion" in self.curves:
+            out |= {"expansion_convention": self.expansion_convention, "expansion_base": self.expansion_base}
         if self.kind == "orthotropic":
             out["axes"] = self.axes
         return out
@@ -180,7 +213,7 @@ def from_record(name: str, record: dict, where: str) -> Material:
     """Build a ``Material`` from a TOML table; every problem is reported at once."""
     where = f"{where}: material '{name}'"
     problems = []
-    unknown = set(record) - set(UNITS) - TEXT_KEYS - CURVE_KEYS - {"axes"}
+    unknown = set(record) - set(UNITS) - TEXT_KEYS - CURVE_KEYS - MECHANICAL_CURVE_KEYS - {"axes"}
     for key in sorted(unknown):
         problems.append(f"{where}: unknown key '{key}'{errors.closest(key, list(UNITS) + list(TEXT_KEYS))}")
     kind = record.get("kind", "isotropic")
@@ -188,8 +221,10 @@ def from_record(name: str, record: dict, where: str) -> Material:
         problems.append(f"{where}: kind must be one of {', '.join(KINDS)}, got {kind!r}")
     width = 3 if kind == "orthotropic" else 1
     values: dict = {}
+    mechanical = {p: c for p in curves_mod.PROPERTIES
+                  if (c := curves_mod.parse(record, p, width, where, problems)) is not None}
     for key in REQUIRED:
-        if key not in record:
+        if key not in record and key not in mechanical:
             problems.append(f"{where}: missing '{key}' [{UNITS[key]}]")
     for key in UNITS:
         if key not in record:
@@ -218,6 +253,7 @@ def from_record(name: str, record: dict, where: str) -> Material:
         problems += _range_problems(where, key, seq)
         values[key] = tuple(seq) if vector else seq[0]
     values |= _curves(record, where, problems)
+    values |= _mechanical(record, mechanical, values, kind, where, problems)
     if problems:
         raise errors.InputError(problems)
     problems += _elastic_problems(kind, values, where) + _conductivity_range_problems(name, values, where)
@@ -300,6 +336,38 @@ def _curves(record: dict, where: str, problems: list[str]) -> dict:
     return out
 
 
+def _mechanical(record: dict, found: dict, values: dict, kind: str, where: str, problems: list[str]) -> dict:
+    """The mechanical curves, the expansion convention and the constants they stand in for."""
+    if not found:
+        if "expansion_convention" in record or "expansion_base" in record:
+            problems.append(f"{where}: expansion_convention and expansion_base belong to an expansion_table or "
+                            "expansion_polynomial")
+        return {}
+    out: dict = {"curves": found}
+    if kind == "orthotropic" and ({"youngs_modulus", "poisson_ratio"} & set(found)):
+        problems.append(f"{where}: temperature-dependent youngs_modulus or poisson_ratio is for isotropic materials")
+    convention = record.get("expansion_convention", "instantaneous")
+    if convention not in curves_mod.CONVENTIONS:
+        problems.append(f"{where}: expansion_convention must be one of {', '.join(curves_mod.CONVENTIONS)}, got "
+                        f"{convention!r}{errors.closest(str(convention), curves_mod.CONVENTIONS)}")
+    elif convention == "mean" and values.get("expansion_base") is None:
+        problems.append(f"{where}: a mean expansion coefficient needs expansion_base, the temperature [K] it is "
+                        "measured from (often 293.15 K)")
+    out["expansion_convention"] = convention
+    for prop, curve in found.items():
+        rows = np.asarray(curve.table, float)[:, 1:] if curve.table else None
+        if prop == "youngs_modulus" and rows is not None and np.any(rows <= 0):
+            problems.append(f"{where}: youngs_modulus_table values must be positive [Pa]")
+        if prop == "poisson_ratio" and rows is not None and not np.all((rows > -1) & (rows < 0.5)):
+            problems.append(f"{where}: poisson_ratio_table values must lie in (-1, 0.5)")
+        if prop not in values:  # the nominal constant: the curve at room temperature
+            nominal = (curves_mod.instantaneous_from_mean(curve, values.get("expansion_base") or curves_mod.ROOM,
+                                                          curves_mod.ROOM)
+                       if prop == "expansion" and convention == "mean" else curve.values(curves_mod.ROOM))
+            out[prop] = tuple(float(v) for v in np.ravel(nominal))
+    return out
+
+
 def _finite_number(value) -> bool:
     """A finite real number that fits a float (a TOML integer may not)."""
     if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -349,10 +417,18 @@ class Library:
 
     def extended(self, records: dict, where: str) -> "Library":
         """A library with ``records`` (name -> TOML table) added; a name already present is replaced."""
+        from . import laminate
+
         problems, added = [], {}
-        for name, record in records.items():
+        plain = {n: r for n, r in records.items() if not (isinstance(r, dict) and r.get("kind") == "laminate")}
+        for name, record in plain.items():
             try:
                 added[name] = from_record(name, record, where)
+            except errors.InputError as exc:
+                problems += exc.problems
+        for name in (n for n in records if n not in plain):  # a stack-up reads the materials above
+            try:
+                added[name] = laminate.build(name, records[name], Library({**self.materials, **added}, {}), where)
             except errors.InputError as exc:
                 problems += exc.problems
         if problems:

@@ -45,6 +45,10 @@ class Domain:
     numbering).  interfaces: (part, part) in sorted order -> facet ids shared by the two parts.
     source_hash: SHA-256 of the mesh file's bytes; unit: the length unit the file was drawn in.
     notices: what was done or found on loading that the user should read (pruned nodes, warnings).
+    contacts: name -> ``Contact``, interfaces split into two sides (see ``join``).
+    ties: name -> ``Tie``, parts meshed apart and tied (see ``join``).
+    touching: (part, part) -> ``Touching``, parts whose faces lie on each other without shared nodes and
+    for which no choice (tie, contact or insulated) was made yet; a stage refuses such a domain.
     """
 
     points: np.ndarray
@@ -56,6 +60,9 @@ class Domain:
     unit: str = "m"
     source: str = ""
     notices: tuple[str, ...] = ()
+    contacts: dict[str, "Contact"] = field(default_factory=dict)
+    ties: dict[str, "Tie"] = field(default_factory=dict)
+    touching: dict[tuple[str, str], "Touching"] = field(default_factory=dict)
     _cache: dict = field(default_factory=dict, compare=False)
 
     @property
@@ -98,7 +105,15 @@ class Domain:
             from scipy.sparse.csgraph import connected_components
 
             t, n = self.tetrahedra, len(self.points)
-            graph = coo_matrix((np.ones(3 * len(t)), (np.repeat(t[:, 0], 3), t[:, 1:].ravel())), shape=(n, n))
+            rows, cols = [np.repeat(t[:, 0], 3)], [t[:, 1:].ravel()]
+            for c in self.contacts.values():  # the two sides of a contact conduct: one body
+                rows.append(c.triangles[0].ravel())
+                cols.append(c.triangles[1].ravel())
+            for tie in self.ties.values():
+                rows.append(self.mesh.facets[0, tie.facets[0]])
+                cols.append(self.mesh.facets[0, tie.facets[1][:1].repeat(len(tie.facets[0]))])
+            rows, cols = np.concatenate(rows), np.concatenate(cols)
+            graph = coo_matrix((np.ones(len(rows)), (rows, cols)), shape=(n, n))
             self._cache["bodies"] = connected_components(graph, directed=False)
         return self._cache["bodies"]
 
@@ -176,6 +191,13 @@ class Domain:
             lines.append(f"  surface {name}: {len(self.surfaces[name])} facets, {area:.4e} m^2")
         for (a, b), facets in sorted(self.interfaces.items()):
             lines.append(f"  interface {a}/{b}: {len(facets)} facets")
+        for (a, b), t in sorted(self.touching.items()):
+            lines.append(f"  parts {a} and {b} touch on {t.area:.4e} m^2 without shared nodes (meshed apart: "
+                         "fragment them, or tie or insulate them in the workflow's [interfaces])")
+        for name, c in sorted(self.contacts.items()):
+            lines.append(f"  contact {name} ({c.parts[0]}/{c.parts[1]}): split, {len(c.facets[0])} facets")
+        for name, t in sorted(self.ties.items()):
+            lines.append(f"  tie {name}: {t.parts[0]} follows {t.parts[1]}")
         lines += [f"  note: {n}" for n in self.notices]
         return "\n".join(lines)
 
@@ -365,10 +387,11 @@ def from_meshio(m, unit: str = "m", factor: float | None = None, source: str = "
     for i, name in enumerate(ordered):
         part_of[parts[name]] = i
     interfaces = _interfaces(mesh, part_of, ordered)
-    notices += _touching_without_nodes(mesh, points, part_of, ordered)
+    touching = _touching(mesh, points, part_of, ordered)
     for note in notices:
         log.warning("%s: %s", where, note)
-    domain = Domain(points, tet, parts, surfaces, interfaces, source_hash, unit, source, tuple(notices))
+    domain = Domain(points, tet, parts, surfaces, interfaces, source_hash, unit, source, tuple(notices),
+                    touching=touching)
     domain._cache["mesh"] = mesh
     return domain
 
@@ -472,29 +495,58 @@ def _interfaces(mesh, part_of: np.ndarray, ordered: list[str]) -> dict[tuple[str
     return out
 
 
-def _touching_without_nodes(mesh, points, part_of, ordered) -> list[str]:
-    """Warn about parts whose boundary faces lie on each other without shared nodes (no transfer)."""
+def _touching(mesh, points, part_of, ordered) -> dict[tuple[str, str], Touching]:
+    """Parts whose boundary faces lie on each other without shared nodes: a face's centroid within
+    ``TOUCH_TOLERANCE`` of its size from another part's face, inside it, the two faces parallel."""
     from scipy.spatial import cKDTree
 
     bnd = mesh.boundary_facets()
     if len(ordered) < 2 or len(bnd) == 0:
-        return []
-    centres = points[mesh.facets[:, bnd].T].mean(axis=1)
+        return {}
+    tri = points[mesh.facets[:, bnd].T]  # (k, 3 corners, 3)
+    centres = tri.mean(axis=1)
     owner = part_of[mesh.f2t[0, bnd]]
-    edge = np.linalg.norm(points[mesh.facets[0, bnd]] - points[mesh.facets[1, bnd]], axis=1)
-    tol = 1e-3 * float(np.median(edge))
-    pairs = cKDTree(centres).query_pairs(tol, output_type="ndarray")
-    if len(pairs) == 0:
-        return []
-    a, b = owner[pairs[:, 0]], owner[pairs[:, 1]]
-    out = []
-    for i, j in sorted({(min(x, y), max(x, y)) for x, y in zip(a.tolist(), b.tolist()) if x != y}):
-        count = int(((np.minimum(a, b) == i) & (np.maximum(a, b) == j)).sum())
-        out.append(
-            f"parts '{ordered[i]}' and '{ordered[j]}' touch on {count} facets but share no nodes there: no heat "
-            "or load crosses; make the interface conforming (in Gmsh: fragment the volumes) if they are joined"
-        )
+    if len(np.unique(owner)) < 2:
+        return {}
+    e1, e2 = tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]
+    normal = np.cross(e1, e2)
+    normal /= np.linalg.norm(normal, axis=1, keepdims=True)
+    size = np.max(np.linalg.norm(tri - centres[:, None], axis=2), axis=1)  # centroid to farthest corner
+    # candidates: centroids p within the size of face q (a centroid inside q is that close to q's)
+    near = cKDTree(centres).query_ball_point(centres, (1 + TOUCH_TOLERANCE) * size, return_sorted=False)
+    q = np.repeat(np.arange(len(near)), [len(n) for n in near])
+    p = np.concatenate([np.asarray(n, dtype=np.int64) for n in near]) if len(q) else np.zeros(0, dtype=np.int64)
+    other = owner[p] != owner[q]
+    p, q = p[other], q[other]
+    if not len(p):
+        return {}
+    gap = np.abs(np.einsum("nd,nd->n", centres[p] - tri[q, 0], normal[q]))
+    opposed = np.abs(np.einsum("nd,nd->n", normal[p], normal[q])) > 0.99  # facets are not oriented
+    # barycentric coordinates of the centroid of p in triangle q (projected on its plane)
+    d = centres[p] - tri[q, 0]
+    a11, a12, a22 = (np.einsum("nd,nd->n", x, y) for x, y in ((e1[q], e1[q]), (e1[q], e2[q]), (e2[q], e2[q])))
+    b1, b2 = np.einsum("nd,nd->n", d, e1[q]), np.einsum("nd,nd->n", d, e2[q])
+    det = a11 * a22 - a12**2
+    s, t = (a22 * b1 - a12 * b2) / det, (a11 * b2 - a12 * b1) / det
+    eps = 1e-9
+    hit = opposed & (gap <= TOUCH_TOLERANCE * size[p]) & (s >= -eps) & (t >= -eps) & (s + t <= 1 + eps)
+    p, q = p[hit], q[hit]
+    area = 0.5 * np.linalg.norm(np.cross(e1, e2), axis=1)
+    out = {}
+    for i, j in sorted({(min(x, y), max(x, y)) for x, y in zip(owner[p].tolist(), owner[q].tolist())}):
+        first = np.unique(np.concatenate([p[owner[p] == i], q[owner[q] == i]]))
+        second = np.unique(np.concatenate([p[owner[p] == j], q[owner[q] == j]]))
+        out[(ordered[i], ordered[j])] = Touching((bnd[first], bnd[second]),
+                                                 min(float(area[first].sum()), float(area[second].sum())))
     return out
+
+
+def touching_problems(domain: Domain, where: str) -> list[str]:
+    """One bad-input line per pair of parts that touch without shared nodes and have no joint chosen."""
+    return [f"{where}: parts '{a}' and '{b}' touch on {t.area:.4g} m^2 ({len(t.facets[0])} and {len(t.facets[1])} "
+            f"facets) but share no nodes there; choose in the workflow's [interfaces] table: kind = 'tie' (heat and "
+            "displacement continuous), or 'insulated' (nothing crosses), or fragment the volumes in the mesher "
+            "(docs/meshing.md)" for (a, b), t in sorted(domain.touching.items())]
 
 
 def _check_volumes(points: np.ndarray, tet: np.ndarray, where: str) -> None:
@@ -552,3 +604,252 @@ def _check_tet10(points: np.ndarray, cells: np.ndarray, where: str) -> list[str]
 def _ids(ids: np.ndarray, shown: int = 10) -> str:
     text = ", ".join(str(i) for i in ids[:shown])
     return text + (", ..." if len(ids) > shown else "")
+
+
+# ------------------------------------------------------------------------------------------ interfaces
+
+@dataclass(frozen=True)
+class Contact:
+    """An interface split into two sides with their own nodes (a contact conductance acts across it).
+
+    parts: (a, b).  facets: (facet ids on side a, facet ids on side b) of the split mesh, row i of each
+    the same triangle.  triangles: ((k, 3) node ids on side a, (k, 3) on side b), row- and column-matched,
+    so ``triangles[1][i, j]`` is the copy of ``triangles[0][i, j]``."""
+
+    parts: tuple[str, str]
+    facets: tuple[np.ndarray, np.ndarray]
+    triangles: tuple[np.ndarray, np.ndarray]
+
+    @property
+    def node_pairs(self) -> np.ndarray:
+        """(m, 2) unique (side a node, side b node) pairs."""
+        pairs = np.stack([self.triangles[0].ravel(), self.triangles[1].ravel()], axis=1)
+        return np.unique(pairs, axis=0)
+
+
+@dataclass(frozen=True)
+class Tie:
+    """Parts meshed apart whose touching faces are tied: the nodes of side ``parts[0]`` (the tied side)
+    follow the field of side ``parts[1]`` (the reference side) interpolated on its faces.
+
+    facets: (facet ids of the tied side, facet ids of the reference side) on the touching area."""
+
+    parts: tuple[str, str]
+    facets: tuple[np.ndarray, np.ndarray]
+
+
+@dataclass(frozen=True)
+class Touching:
+    """Boundary faces of two parts that lie on each other without shared nodes.
+
+    facets: (facet ids of the first part, facet ids of the second) whose centroids lie on the other
+    part's faces.  area: touching area [m^2] (the smaller of the two sides' areas: the faces of the
+    side whose faces reach past the touching area's edge are counted whole)."""
+
+    facets: tuple[np.ndarray, np.ndarray]
+    area: float
+
+
+@dataclass(frozen=True)
+class Joint:
+    """How two parts are joined across an interface, as the user chose it.
+
+    kind: "contact" (split the interface; a conductance per area acts across it in the heat stage and
+    the two sides keep the same displacement), "tie" (heat and displacement continuous; for parts
+    meshed apart) or "insulated" (no heat crosses; for a shared interface the sides stay tied
+    mechanically, for parts meshed apart nothing crosses) or "section" (a bolt's pretension section: a
+    planar shared interface across the shank, split; heat and displacement continuous but for the
+    shortening that a preload imposes in the stress stage).  parts: the two parts; or surface: a surface
+    group on the interface (inner facets), whose two sides name the parts."""
+
+    kind: str
+    parts: tuple[str, str] | None = None
+    surface: str | None = None
+
+
+JOINT_KINDS = ("contact", "tie", "insulated", "section")
+
+#: Faces of two parts lie on each other when a centroid is within this fraction of the local edge length.
+TOUCH_TOLERANCE = 1e-3
+
+
+def join(domain: Domain, joints: dict[str, Joint], where: str = "interfaces") -> Domain:
+    """Apply the user's joints: split "contact" (and "insulated" shared) interfaces into two sides,
+    record "tie"s of parts meshed apart, and mark chosen touching pairs as resolved.
+
+    Every problem is reported at once (``InputError``): unknown parts or surfaces, a pair that shares
+    no interface and does not touch, a tie between parts that already share nodes."""
+    problems: list[str] = []
+    split: dict[str, tuple[tuple[str, str], np.ndarray]] = {}
+    ties: dict[str, Tie] = dict(domain.ties)
+    touching = dict(domain.touching)
+    for name, joint in joints.items():
+        key = f"{where}.{name}"
+        if joint.kind not in JOINT_KINDS:
+            problems.append(f"{key}: kind {joint.kind!r} is not one of {', '.join(JOINT_KINDS)}"
+                            f"{errors.closest(str(joint.kind), JOINT_KINDS)}")
+            continue
+        pair, facets = _joint_facets(domain, joint, key, problems)
+        if pair is None:
+            continue
+        if facets is not None:  # a shared (conforming) interface
+            if joint.kind == "section" and not _planar(domain, facets):
+                problems.append(f"{key}: a pretension section must be planar (a cut across the bolt's shank)")
+                continue
+            if joint.kind == "tie":
+                problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' already share nodes on their interface "
+                                "(bonded); a tie is for parts meshed apart; use kind = 'contact' for a conductance")
+                continue
+            split[name] = (tuple(joint.parts) if joint.parts else pair, facets)  # side a: the first part named
+            continue
+        found = touching.pop(pair, None)
+        if found is None:
+            problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' neither share an interface nor touch")
+            continue
+        if joint.kind in ("contact", "section"):
+            problems.append(f"{key}: parts '{pair[0]}' and '{pair[1]}' are meshed apart (no shared nodes); a contact "
+                            "conductance needs a conforming interface (fragment the volumes in the mesher) or "
+                            "choose kind = 'tie' or 'insulated'")
+        elif joint.kind == "tie":  # the first part named follows the second
+            first = tuple(joint.parts) == pair
+            ties[name] = Tie(tuple(joint.parts), found.facets if first else found.facets[::-1])
+    if problems:
+        raise errors.InputError(problems)
+    out = split_interfaces(domain, split) if split else domain
+    return _replace(out, ties=ties, touching=touching)
+
+
+def _joint_facets(domain: Domain, joint: Joint, key: str, problems: list[str]):
+    """The pair (sorted) and, for a shared interface, its facet ids; (None, None) after a problem."""
+    if (joint.parts is None) == (joint.surface is None):
+        problems.append(f"{key}: give either parts = [a, b] or surface = NAME")
+        return None, None
+    if joint.surface is not None:
+        if joint.surface not in domain.surfaces:
+            problems.append(errors.unknown_name("surface", joint.surface, domain.surfaces, key))
+            return None, None
+        facets = domain.surfaces[joint.surface]
+        f2t = domain.mesh.f2t[:, facets]
+        if (f2t[1] < 0).any():
+            problems.append(f"{key}: surface '{joint.surface}' has {int((f2t[1] < 0).sum())} facets on the outer "
+                            "boundary; an interface surface lies between two parts")
+            return None, None
+        owner = domain.part_ids()
+        names = sorted(domain.parts)
+        pairs = {tuple(sorted((names[owner[a]], names[owner[b]]))) for a, b in f2t.T}
+        if len(pairs) != 1 or len(next(iter(pairs))) != 2 or next(iter(pairs))[0] == next(iter(pairs))[1]:
+            problems.append(f"{key}: surface '{joint.surface}' must lie between exactly two parts; it lies between "
+                            + ", ".join("/".join(p) for p in sorted(pairs)))
+            return None, None
+        return next(iter(pairs)), facets
+    bad = [p for p in joint.parts if p not in domain.parts]
+    for p in bad:
+        problems.append(errors.unknown_name("part", p, domain.parts, key))
+    if bad or len(joint.parts) != 2 or joint.parts[0] == joint.parts[1]:
+        if not bad:
+            problems.append(f"{key}: parts must name two different parts, got {list(joint.parts)}")
+        return None, None
+    pair = tuple(sorted(joint.parts))
+    return pair, domain.interfaces.get(pair)
+
+
+def _planar(domain: Domain, facets: np.ndarray) -> bool:
+    tri = domain.points[domain.mesh.facets[:, facets].T]
+    n = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+    n /= np.linalg.norm(n, axis=1, keepdims=True)
+    return bool(np.abs(np.abs(n @ n[0]) - 1).max() < 1e-6 and np.abs((tri[:, 0] - tri[0, 0]) @ n[0]).max()
+                < 1e-9 * np.linalg.norm(np.ptp(domain.points, axis=0)))
+
+
+def _replace(domain: Domain, **changes) -> Domain:
+    """A copy of ``domain`` with some fields changed; the geometry caches are kept if the mesh is the same."""
+    import dataclasses
+
+    out = dataclasses.replace(domain, **changes, _cache={})
+    if "points" not in changes and "tetrahedra" not in changes:
+        out._cache.update({k: v for k, v in domain._cache.items() if k != "bodies"})
+    return out
+
+
+def split_interfaces(domain: Domain, interfaces: dict[str, tuple[tuple[str, str], np.ndarray]]) -> Domain:
+    """Duplicate the nodes on the given inner facets so that each side has its own (a crack-like split).
+
+    interfaces: name -> ((part a, part b), facet ids).  Around each node on a split facet, the elements
+    that stay connected through faces that are not split keep one copy; so a node where the interface
+    ends on a third part stays shared.  Element ids and order are unchanged; surfaces follow their facets."""
+    mesh, t = domain.mesh, domain.tetrahedra
+    n = len(domain.points)
+    cut = np.unique(np.concatenate([f for _, f in interfaces.values()]))
+    is_cut = np.zeros(mesh.facets.shape[1], dtype=bool)
+    is_cut[cut] = True
+    on = np.zeros(n, dtype=bool)
+    on[mesh.facets[:, cut].ravel()] = True
+    # incidences (element, corner) of the nodes on the cut, numbered by key element * 4 + corner
+    elem, corner = np.nonzero(on[t])
+    inc_key = elem * 4 + corner
+    # connect the incidences of a node in two elements that share a face not cut
+    f2t = mesh.f2t
+    inner = np.flatnonzero((f2t[1] >= 0) & ~is_cut)
+    rows, cols = [], []
+    for j in range(3):
+        v = mesh.facets[j, inner]
+        keep = on[v]
+        a, b, v = f2t[0, inner[keep]], f2t[1, inner[keep]], v[keep]
+        rows.append(_corner_key(t, a, v))
+        cols.append(_corner_key(t, b, v))
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    pos = lambda keys: np.searchsorted(inc_key, keys)  # inc_key is sorted (np.nonzero is row-major)
+    r, c = pos(np.concatenate(rows)), pos(np.concatenate(cols))
+    m = len(inc_key)
+    _, comp = connected_components(coo_matrix((np.ones(len(r)), (r, c)), shape=(m, m)), directed=False)
+    node = t[elem, corner]
+    # one id per (node, component): the first component of a node keeps its id, others get new ones
+    pairs, first = np.unique(np.stack([node, comp], axis=1), axis=0, return_index=True)
+    new_id = pairs[:, 0].copy()
+    repeat = np.r_[False, pairs[1:, 0] == pairs[:-1, 0]]
+    new_id[repeat] = n + np.arange(int(repeat.sum()))
+    which = np.searchsorted(pairs[:, 0] * m + pairs[:, 1], node * m + comp)
+    tet = t.copy()
+    tet[elem, corner] = new_id[which]
+    points = np.vstack([domain.points, domain.points[pairs[repeat, 0]]])
+
+    from skfem import MeshTet
+
+    new_mesh = MeshTet(points.T.copy(), tet.T.copy())
+    keys = _facet_keys(new_mesh.facets.T, len(points))
+    order = np.argsort(keys)
+
+    def facet_of(element, old_facets):
+        tri = mesh.facets[:, old_facets].T
+        nodes = np.stack([tet[element, np.argmax(t[element] == tri[:, j, None], axis=1)] for j in range(3)], axis=1)
+        found = order[np.searchsorted(keys, _facet_keys(nodes, len(points)), sorter=order)]
+        return found, nodes
+
+    surfaces = {name: np.unique(facet_of(f2t[0, f], f)[0]) for name, f in domain.surfaces.items()}
+    part_of = domain.part_ids()
+    ordered = sorted(domain.parts)
+    contacts = dict(domain.contacts)
+    notices = list(domain.notices)
+    for name, ((pa, pb), facets) in interfaces.items():
+        e0, e1 = f2t[0, facets], f2t[1, facets]
+        side_a = np.where(np.array(ordered)[part_of[e0]] == pa, e0, e1)
+        side_b = np.where(side_a == e0, e1, e0)
+        fa, ta = facet_of(side_a, facets)
+        fb, tb = facet_of(side_b, facets)
+        shared = int((ta == tb).all(axis=1).sum())
+        kept = int((ta == tb).sum())
+        if kept:
+            notices.append(f"interface '{name}': {kept} node(s) where it meets a third part stay shared "
+                           f"({shared} facets fully)")
+        contacts[name] = Contact((pa, pb), (fa, fb), (ta, tb))
+    out = Domain(points, tet, domain.parts, surfaces, _interfaces(new_mesh, part_of, ordered), domain.source_hash,
+                 domain.unit, domain.source, tuple(notices), contacts, domain.ties, domain.touching)
+    out._cache["mesh"] = new_mesh
+    return out
+
+
+def _corner_key(t: np.ndarray, elements: np.ndarray, nodes: np.ndarray) -> np.ndarray:
+    """element * 4 + the corner of ``elements`` that holds ``nodes``."""
+    return elements * 4 + np.argmax(t[elements] == nodes[:, None], axis=1)

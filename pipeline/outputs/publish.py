@@ -13,7 +13,7 @@ from .. import files, kinds
 from ..kinds.base import OutputContext
 from ..model.units import celsius
 from ..notices import Notice
-from . import report, vtu
+from . import report, verdict, vtu
 
 log = logging.getLogger(__name__)
 
@@ -35,11 +35,17 @@ def write(folder: Path, record: dict, results: dict, domains: dict, options, lim
             else:
                 st["vtu"] = vtu.write(folder / f"{name}.vtu", domains[name], results[name], st["kind"]).name
             written.append(st["vtu"])
+    for name, st in record["stages"].items():
+        files = kinds.hook(st["kind"], "tables")(folder, name, st, results[name])
+        if files:
+            st["tables"] = files
     if written:
         _pvd(folder / "results.pvd", written)
         record["pvd"] = "results.pvd"
     limits = {p: float(celsius(t)) for p, t in limits_K.items()}
     context = OutputContext(limits, options.required_safety_factor, record)
+    if "notices" in record:  # a rebuild draws the figures again: an earlier failure to draw is no longer news
+        record["notices"] = [n for n in record["notices"] if not str(n).startswith("figures not drawn")]
     if options.figures:
         try:
             _figures(folder, record, results, domains, context)
@@ -47,6 +53,7 @@ def write(folder: Path, record: dict, results: dict, domains: dict, options, lim
             log.warning("figures were not drawn (%s: %s); the results are complete without them",
                         type(exc).__name__, exc)
             record.setdefault("notices", []).append(f"figures not drawn: {type(exc).__name__}: {exc}")
+    record["verdict"] = verdict.verdict(record, limits, options.required_safety_factor)
     found = warnings(record, domains, context)
     record["warnings"] = [str(n) for n in found]
     record["warning_records"] = [n.to_dict() for n in found]

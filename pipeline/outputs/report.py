@@ -1,8 +1,10 @@
 """report.html: one self-contained file (inline CSS, images embedded) built from a run's summary.
 
-It reads results and figures; it never solves.  Sections: inputs and assumptions, materials with
-sources, mesh, per stage the tables (temperatures against limits, heat balance, stresses and safety
-factors against the required value, reactions and equilibrium), warnings, versions and keys, cautions.
+It reads results and figures; it never solves.  Sections, in the order a reader needs them: the verdict
+(hottest part against its limit, lowest safety factor and whether its peak sits at a singular feature,
+parts that fail), the caution, every load and boundary condition with units, the materials with the
+values used and a footnote per source, then per stage its tables and figures, warnings, mesh,
+assumptions, versions and keys.
 """
 
 from __future__ import annotations
@@ -11,17 +13,12 @@ import base64
 import html
 from pathlib import Path
 
+from . import style
+from . import verdict as verdict_mod
 from .summary import CAUTION, write_text
 
-STYLE = """
-body{font-family:system-ui,sans-serif;margin:2em auto;max-width:70em;color:#222;line-height:1.4}
-h1{font-size:1.6em;border-bottom:2px solid #2166ac}h2{font-size:1.25em;margin-top:1.6em;color:#2166ac}
-table{border-collapse:collapse;margin:.6em 0}td,th{border:1px solid #bbb;padding:.25em .6em;text-align:right}
-th{background:#eef2f7}td:first-child,th:first-child{text-align:left}.fail{color:#b2182b;font-weight:bold}
-.pass{color:#1b7837}.warn{background:#fff4e5;border-left:4px solid #e08214;padding:.5em 1em}
-.caution{background:#f2f2f2;border-left:4px solid #555;padding:.8em 1em}img{max-width:100%;border:1px solid #ddd}
-figure{margin:1em 0}figcaption{font-size:.9em;color:#555}
-"""
+#: The CSS of the report and the study pages (the house style).
+STYLE = style.CSS
 
 
 def escape(value) -> str:
@@ -52,8 +49,22 @@ def verdict(ok: bool | None) -> Cell:
 
 def _image(folder: Path, figure: dict) -> str:
     data = base64.b64encode((folder / figure["file"]).read_bytes()).decode()
-    caption = f"{figure['file']}: shown range {figure['range'][0]:.4g} to {figure['range'][1]:.4g} {figure['unit']}"
-    return f'<figure><img alt="{escape(figure["file"])}" src="data:image/png;base64,{data}"><figcaption>{escape(caption)}</figcaption></figure>'
+    caption = f"{figure['file']}: colour range {figure['range'][0]:.4g} to {figure['range'][1]:.4g} {figure['unit']}"
+    return (f'<figure><img alt="{escape(figure["file"])}" src="data:image/png;base64,{data}">'
+            f"<figcaption>{escape(caption)}</figcaption></figure>")
+
+
+#: The word of each verdict state (read without colour) and its CSS class.
+STATES = {"pass": "PASS", "near": "NEAR", "fail": "FAIL", "none": "NO LIMIT"}
+
+
+def verdict_section(lines: list[dict]) -> str:
+    """The verdict: one line per finding, its state as a word on a coloured badge, a note beside it."""
+    items = "".join(f'<li><span class="badge {"nolimit" if v["state"] == "none" else v["state"]}">'
+                    f'{STATES[v["state"]]}</span> {escape(v["text"])}'
+                    + (f'<br><span class="flag">Note:</span> {escape(v["note"])}' if v["note"] else "") + "</li>"
+                    for v in lines)
+    return f'<section id="verdict" class="verdict"><h2>Verdict</h2><ul>{items or "<li>no results to judge</li>"}</ul></section>'
 
 
 def build(folder: Path, record: dict, context) -> Path:
@@ -62,12 +73,28 @@ def build(folder: Path, record: dict, context) -> Path:
     from .. import kinds
 
     warnings = record.get("warnings", [])
-    out = [f"<!doctype html><html><head><meta charset='utf-8'><title>{escape(record.get('title') or 'thermochain report')}"
-           f"</title><style>{STYLE}</style></head><body>",
-           f"<h1>{escape(record.get('title') or record['workflow'])}</h1>",
-           f"<p>Workflow <code>{escape(record['workflow'])}</code>, thermochain {escape(record['thermochain'])}, "
-           f"status <b>{escape(record['status'])}</b>.</p>",
-           f'<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div>']
+    lines = record.get("verdict") or verdict_mod.verdict(record, context.limits_degC, context.required_safety_factor)
+    title = record.get("title") or record["workflow"]
+    out = [f"<!doctype html><html><head><meta charset='utf-8'><title>{escape(title)}</title><style>{STYLE}</style>"
+           f"</head><body><main><h1>{escape(title)}</h1>",
+           f'<p class="notes">Workflow <code>{escape(record["workflow"])}</code>, thermochain '
+           f'{escape(record["thermochain"])}, status <b>{escape(record["status"])}</b>; '
+           f'{len(warnings)} warning{"s" if len(warnings) != 1 else ""} (<a href="#warnings">below</a>).</p>',
+           verdict_section(lines), f'<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div>']
+    out.append('<h2 id="loads">Loads and boundary conditions</h2><div class="text">' + table(
+        ["stage", "kind", "where", "value"], verdict_mod.loads(record)) + "</div>")
+    header, rows, notes = verdict_mod.materials(record)
+    out.append('<h2 id="materials">Materials (values used)</h2>' + table(header, rows)
+               + '<ol class="notes">' + "".join(f"<li>{escape(n)}</li>" for n in notes) + "</ol>"
+               + '<p class="notes">Values in SI-derived units as shown; several values of one property are '
+                 "the material axes' (x / y / z). [n]: the source of the value, listed above.</p>")
+    for name, st in record["stages"].items():
+        out.append(f'<h2 id="stage-{escape(name)}">Stage {escape(name)} ({escape(st["kind"])}): '
+                   f'{escape(st["status"])}</h2><p class="notes">{escape(st.get("reason", ""))}</p>')
+        out += kinds.hook(st["kind"], "report")(st, context)
+        out += [_image(folder, figure) for figure in st.get("figures", [])]
+    out.append('<h2 id="warnings">Warnings</h2>'
+               + ("".join(f'<p class="warn">{escape(w)}</p>' for w in warnings) or "<p>none</p>"))
     mesh = record["mesh"]
     lo, hi = mesh["bounding_box_m"]
     out.append("<h2>Mesh</h2>" + table(["file", "unit", "nodes", "tetrahedra", "bounding box [mm]"], [[
@@ -78,20 +105,12 @@ def build(folder: Path, record: dict, context) -> Path:
                "reverse).</li><li>Parts that share nodes are bonded: perfect thermal contact, no sliding or gaps."
                "</li><li>Linear elasticity, small strains; no plasticity, creep, contact, bolt preload or fatigue."
                "</li><li>Film coefficients and powers are inputs; no fluid flow is solved.</li>"
-               "<li>Material data are typical values, not design minima (sources below).</li></ul>")
-    out.append("<h2>Materials</h2>" + table(["stage", "part", "material", "source of the data"], [
-        [name, part, mat, record.get("material_sources", {}).get(mat, "")]
-        for name, st in record["stages"].items() for part, mat in st.get("materials", {}).items()]))
-    for name, st in record["stages"].items():
-        out.append(f"<h2>Stage {escape(name)} ({escape(st['kind'])}): {escape(st['status'])}</h2><p>{escape(st.get('reason', ''))}</p>")
-        out += kinds.hook(st["kind"], "report")(st, context)
-        out += [_image(folder, figure) for figure in st.get("figures", [])]
-    out.append("<h2>Warnings</h2>" + ("".join(f'<p class="warn">{escape(w)}</p>' for w in warnings) or "<p>none</p>"))
+               "<li>Material data are typical values, not design minima (sources above).</li></ul>")
     out.append("<h2>Versions and inputs</h2>" + table(["stage", "key (SHA-256 of its inputs)"], [
         [name, st.get("key", "")] for name, st in record["stages"].items()]))
     versions = next((st["inputs"]["versions"] for st in record["stages"].values() if "inputs" in st), {})
     out.append(table(["library", "version"], [[k, v] for k, v in versions.items()]))
-    out.append(f'<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div></body></html>')
+    out.append(f'<div class="caution"><b>Caution.</b> {escape(CAUTION)}</div></main></body></html>')
     path = folder / "report.html"
     write_text(path, "\n".join(out))
     return path

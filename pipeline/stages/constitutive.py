@@ -63,6 +63,42 @@ def expansion_vector(material) -> np.ndarray:
     return np.array([t[0, 0], t[1, 1], t[2, 2], 2 * t[1, 2], 2 * t[0, 2], 2 * t[0, 1]])
 
 
+# --------------------------------------------------------------- temperature-dependent properties
+
+def isotropic(e: np.ndarray, nu: np.ndarray) -> np.ndarray:
+    """(*e.shape, 6, 6) isotropic elasticity matrices [Pa] from E [Pa] and nu arrays of one shape."""
+    lam, mu = e * nu / ((1 + nu) * (1 - 2 * nu)), e / (2 * (1 + nu))
+    c = np.zeros((*np.shape(e), 6, 6))
+    c[..., :3, :3] = lam[..., None, None]
+    for i in range(3):
+        c[..., i, i] += 2 * mu
+        c[..., 3 + i, 3 + i] = mu
+    return c
+
+
+def stiffness_at(material, t: np.ndarray) -> np.ndarray:
+    """C [Pa] at temperatures t [K]: (6, 6) when E and nu are constant, else (*t.shape, 6, 6) from
+    E(T) and nu(T) (``model.curves``) evaluated at each point."""
+    if not material.stiffness_varies:
+        return stiffness_matrix(material)
+    t = np.asarray(t, dtype=float)
+
+    def at(prop):
+        curve = material.curves.get(prop)
+        return curve.values(t)[0] if curve else np.full(t.shape, getattr(material, prop)[0])
+
+    return isotropic(at("youngs_modulus"), at("poisson_ratio"))
+
+
+def thermal_strain(material, t: np.ndarray, t_ref: np.ndarray) -> np.ndarray:
+    """(6, *t.shape) engineering Voigt thermal strain in model coordinates from the stress-free
+    temperature t_ref to t [K], by the material's expansion curve and convention (``model.curves``)."""
+    e = material.expansion_strain(t, t_ref)  # principal, in the material axes
+    r = np.asarray(material.axes, float)
+    tensor = np.einsum("ai,aj,a...->ij...", r, r, e)
+    return voigt(tensor)
+
+
 def voigt(eps):
     """(3, 3, ...) symmetric strain tensor -> (6, ...) engineering Voigt vector."""
     return np.stack([eps[0, 0], eps[1, 1], eps[2, 2], 2 * eps[1, 2], 2 * eps[0, 2], 2 * eps[0, 1]])
@@ -72,6 +108,15 @@ def von_mises(s: np.ndarray) -> np.ndarray:
     """von Mises equivalent stress from Voigt stresses (6, ...) [Pa]."""
     xx, yy, zz, yz, xz, xy = s
     return np.sqrt(0.5 * ((xx - yy) ** 2 + (yy - zz) ** 2 + (zz - xx) ** 2) + 3 * (xy**2 + yz**2 + xz**2))
+
+
+def equivalent_strain(e: np.ndarray) -> np.ndarray:
+    """von Mises equivalent strain sqrt(2/3 e':e') from engineering Voigt strains (6, ...) [-]
+    (equal to the axial strain of a uniaxial, volume-preserving strain)."""
+    xx, yy, zz, yz, xz, xy = e
+    mean = (xx + yy + zz) / 3
+    dev = (xx - mean) ** 2 + (yy - mean) ** 2 + (zz - mean) ** 2 + 0.5 * (yz**2 + xz**2 + xy**2)
+    return np.sqrt(2.0 / 3.0 * dev)
 
 
 def principal(s: np.ndarray) -> np.ndarray:

@@ -94,9 +94,12 @@ def find(domain, supports: Mapping) -> Features:
             touched.append(frozenset(parts))
 
     boundary = mesh.boundary_facets()
-    free = boundary[~mirror[boundary]]
+    # the two sides of a split interface (contact conductance) and of a tie are joined, not free surfaces
+    joints = [(j.parts, np.concatenate(j.facets)) for j in list(domain.contacts.values()) + list(domain.ties.values())]
+    joined = np.concatenate([f for _, f in joints]) if joints else np.zeros(0, dtype=np.int64)
+    free = boundary[~mirror[boundary] & ~np.isin(boundary, joined)]
     free_edges = np.unique(mesh.f2e[:, free])
-    for (a, b), facets in domain.interfaces.items():
+    for (a, b), facets in list(domain.interfaces.items()) + joints:
         add(np.intersect1d(np.unique(mesh.f2e[:, facets]), free_edges), "bimaterial_edge", f"{a}|{b}", (a, b))
     for i, part in enumerate(names):
         add(_reentrant(domain, np.flatnonzero(part_of == i), mirror), "reentrant_edge", part, (part,))

@@ -4,6 +4,9 @@ Weak form (theory in docs/theory.md): find T with T = T_fixed on fixed surfaces 
     int k grad T . grad v dV + sum_conv int h T v dA = int q v dV + sum_conv int h T_amb v dA + int q'' v dA
 for every v vanishing on fixed surfaces.  Heat flows are positive into the body.  Units: T [K],
 k [W/(m*K)], q [W/m^3], q'' [W/m^2], h [W/(m^2*K)].
+Contacts add int h_c (T_a - T_b)(v_a - v_b) dA across split interfaces (``ties``); ties of parts meshed
+apart constrain T = P T_r.  A cavity's air is one more unknown T_air: its films exchange
+int h (T - T_air) dA with the solids, and its balance is sum_s int h (T - T_air) dA = m_dot c_p (T_air - T_in).
 """
 
 from __future__ import annotations
@@ -13,14 +16,15 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.sparse as sp
 
 from .. import errors
 from ..fields import TemperatureField
 from ..model.materials import Material
 from ..model.units import celsius
-from . import fem, kernels, solvers
+from . import exchange as exchange_mod, fem, kernels, solvers, ties
 
-STAGE_VERSION = 1
+STAGE_VERSION = 3
 
 
 @dataclass(frozen=True)
@@ -57,6 +61,23 @@ class HeatFlux:
 
 
 @dataclass(frozen=True)
+class Cavity:
+    """Enclosed air with one unknown temperature.
+
+    films: surface -> film coefficient [W/(m^2*K)] to the air.  ventilation: m_dot * c_p [W/K] of air
+    flowing through (0: sealed, then the net exchange with the solids is zero at steady state).
+    inlet: temperature of the incoming air [K]."""
+
+    films: Mapping[str, float]
+    ventilation: float = 0.0
+    inlet: float = 293.15
+
+
+#: A fixed ambient that supplies more than this fraction of the largest heat flow gets a warning.
+SUPPLY_WARNING = 1e-6
+
+
+@dataclass(frozen=True)
 class HeatSpec:
     """What the heat stage reads besides the domain.
 
@@ -65,6 +86,11 @@ class HeatSpec:
     ``x`` (shape (3, ...), m) for a measured or manufactured distribution.  flux: surface -> HeatFlux.
     convection: surface -> Convection.  radiation: surface -> Radiation.
     fixed_temperature: surface -> K, a number or a function of x.
+    contacts: contact name (``domain.contacts``) -> conductance per area h_c = 1/R'' [W/(m^2*K)]; 0 for
+    an insulated interface.  tied: split interfaces that conduct perfectly (bolt pretension sections).
+    cavities: name -> Cavity (enclosed air as an unknown).
+    exchange: view-factor group -> ExchangeGroup (grey exchange among surfaces, pipeline/stages/
+    exchange.py); view: the view factors (a ViewFactors; while planning the view stage's ViewSpec).
     Nonlinear terms (radiation, k(T), power-law convection) are solved by Newton-Raphson with the
     consistent Jacobian; ``max_iterations`` bounds it, ``tolerance`` is the relative residual.
     probes: name -> (x, y, z) [m].  order: 1 or 2.  solver: "auto", "direct" or "amg".
@@ -79,12 +105,17 @@ class HeatSpec:
     convection: Mapping[str, Convection] = field(default_factory=dict)
     radiation: Mapping[str, Radiation] = field(default_factory=dict)
     fixed_temperature: Mapping[str, float | Callable] = field(default_factory=dict)
+    contacts: Mapping[str, float] = field(default_factory=dict)
+    tied: tuple[str, ...] = ()
+    cavities: Mapping[str, Cavity] = field(default_factory=dict)
     probes: Mapping[str, tuple[float, float, float]] = field(default_factory=dict)
     order: int = 1
     solver: str = "auto"
     max_iterations: int = 30
     tolerance: float = 1e-10
     memory_limit: float | None = None
+    exchange: Mapping[str, exchange_mod.ExchangeGroup] = field(default_factory=dict)
+    view: object = None
 
 
 def check(domain, spec: HeatSpec, where: str = "heat") -> None:
@@ -101,12 +132,19 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
         if part not in domain.parts:
             problems.append(errors.unknown_name("part", part, domain.parts, f"{where}.{key}"))
     claimed: dict[str, str] = {}
-    for key, group in (("fixed_temperature", spec.fixed_temperature), ("convection", spec.convection),
-                       ("radiation", spec.radiation), ("flux", spec.flux)):
+    groups = [("fixed_temperature", spec.fixed_temperature), ("convection", spec.convection),
+              ("radiation", spec.radiation), ("flux", spec.flux)]
+    groups += [(f"cavities.{name}.films", c.films) for name, c in spec.cavities.items()]
+    for key, group in groups:
         for surface in group:
             if surface not in domain.surfaces:
                 problems.append(errors.unknown_name("surface", surface, domain.surfaces, f"{where}.{key}"))
                 continue
+            if key.startswith("cavities") and claimed.get(surface, "").startswith(("cavities", "convection")):
+                problems.append(f"{where}.{key}: surface '{surface}' already has a film ({claimed[surface]}); "
+                                "give each surface one film, to a fixed ambient or to one cavity")
+            if key == "convection" and claimed.get(surface, "").startswith("cavities"):
+                problems.append(f"{where}.convection: surface '{surface}' already has a film to a cavity")
             if surface in claimed and "fixed_temperature" in (claimed[surface], key):
                 problems.append(f"{where}: surface '{surface}' has both {claimed[surface]} and {key}; "
                                 "a fixed temperature cannot be combined with another condition")
@@ -116,7 +154,8 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
                 if inner:
                     problems.append(f"{where}.{key}: surface '{surface}' has {inner} facets inside the body, "
                                     "not on its boundary; convection and flux need a boundary surface")
-    problems += _value_problems(spec, where)
+    problems += _value_problems(spec, where) + _exchange_problems(domain, spec, where)
+    problems += _interface_problems(domain, spec, where)
     fem.check_probes(domain, spec.probes, where, problems)
     if spec.order in fem.ORDERS and not problems:
         try:
@@ -125,6 +164,31 @@ def check(domain, spec: HeatSpec, where: str = "heat") -> None:
             problems += exc.problems
     if problems:
         raise errors.InputError(problems)
+
+
+def _interface_problems(domain, spec: HeatSpec, where: str) -> list[str]:
+    """Every contact needs a conductance; touching parts need a choice (``mesh.join``)."""
+    from ..model.mesh import touching_problems
+
+    bad = touching_problems(domain, where)
+    for name in domain.contacts:
+        if name not in spec.contacts and name not in spec.tied:
+            bad.append(f"{where}.contacts: interface '{name}' is split but has no conductance; give h_c "
+                       "[W/(m^2*K)] or a resistance R'' [m^2*K/W] (0 conductance for an insulated interface)")
+    for name, h in spec.contacts.items():
+        if name not in domain.contacts:
+            bad.append(errors.unknown_name("interface", name, domain.contacts, f"{where}.contacts"))
+        elif not (np.isfinite(h) and h >= 0):
+            bad.append(f"{where}.contacts.{name}: conductance must be a finite number >= 0 W/(m^2*K), got {h}")
+    for name, c in spec.cavities.items():
+        if not c.films:
+            bad.append(f"{where}.cavities.{name}: give the surfaces that face the air (films)")
+        for surface, h in c.films.items():
+            if not (np.isfinite(h) and h > 0):
+                bad.append(f"{where}.cavities.{name}.films.{surface}: film coefficient must be > 0 W/(m^2*K), got {h}")
+        if not (np.isfinite(c.ventilation) and c.ventilation >= 0) or not c.inlet >= 0:
+            bad.append(f"{where}.cavities.{name}: ventilation must be >= 0 W/K and inlet >= 0 K")
+    return bad
 
 
 def _value_problems(spec: HeatSpec, where: str) -> list[str]:
@@ -156,6 +220,21 @@ def _value_problems(spec: HeatSpec, where: str) -> list[str]:
             if not callable(value) and not np.isfinite(value):
                 bad.append(f"{where}.{key}.{name}: must be a finite number, got {value}")
     return bad
+
+
+def _exchange_problems(domain, spec: HeatSpec, where: str) -> list[str]:
+    if not spec.exchange:
+        return []
+    if spec.view is None:
+        return [f"{where}.radiation_exchange: needs the view factors of a view stage (give 'view')"]
+    out = exchange_mod.problems(domain, spec.view, spec.exchange, where)
+    if getattr(spec.view, "domain_hash", domain.source_hash) != domain.source_hash:
+        out.append(f"{where}.view: the view factors belong to another mesh; the view stage must use this one")
+    for s in {s for n in spec.exchange if n in spec.view.groups for s in spec.view.groups[n].surfaces}:
+        if s in spec.radiation:
+            out.append(f"{where}.radiation.{s}: surface '{s}' radiates in a radiation_exchange group already; "
+                       "remove one of the two")
+    return out
 
 
 def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) -> TemperatureField:
@@ -191,9 +270,9 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
         per_area = f.per_area if f.per_area is not None else f.total / facets.area.sum()
         b = b + facets.load(per_area)
         balance.append({"name": name, "kind": "heat_flux", "heat_in_W": float(per_area * facets.area.sum())})
-    problem.b = b
+    problem.b = np.r_[b, [c.ventilation * c.inlet for c in spec.cavities.values()]]
 
-    T = np.full(space.N, _initial_temperature(spec))
+    T = np.full(problem.n, _initial_temperature(spec))
     owner: dict[str, np.ndarray] = {}
     fixed = np.zeros(0, dtype=np.int64)
     for name, value in spec.fixed_temperature.items():
@@ -201,7 +280,8 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
         owner[name] = dofs
         T[dofs] = value(space.doflocs[:, dofs]) if callable(value) else value
         fixed = np.union1d(fixed, dofs)
-    free = np.setdiff1d(np.arange(space.N), fixed)
+    problem.tie = problem.tie.release(fixed)  # a fixed temperature prevails over a tie
+    free = np.setdiff1d(np.arange(problem.n), np.union1d(fixed, problem.tie.tied))
     assembled = time.perf_counter() - start
     T, record, newton, outside = _newton(problem, T, free, spec, where)
 
@@ -211,6 +291,16 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
     for name, kind, facets, c in problem.losses:
         loss, _ = _surface_loss(kind, c, facets.values(T))
         balance.append({"name": name, "kind": kind, "heat_in_W": -facets.integral(loss)})
+    cavities = problem.cavity_records(T)
+    for cavity in cavities:
+        balance += [{"name": s, "kind": "cavity", "cavity": cavity["name"], "heat_in_W": -w}
+                    for s, w in cavity["films_W"].items()]
+    interfaces = [term.record(name, domain.contacts[name], T) for name, term in problem.contacts.items()]
+    T = T[: space.N]
+    paths = []
+    if problem.exchange:
+        rows, paths = problem.exchange.balance(T)
+        balance += rows
 
     parts = _part_statistics(domain, problem, T)
     notices = list(domain.notices) + _validity_notices(spec, parts)
@@ -221,9 +311,19 @@ def solve(domain, spec: HeatSpec, where: str = "heat", checked: bool = False) ->
         temperature=T, order=spec.order, vertices=int(domain.mesh.nvertices), parts=parts, balance=tuple(balance),
         probes=_probe_values(domain, spec.order, T, spec.probes, where), loads=tuple(loads),
         adiabatic=_adiabatic(domain, spec), solver=record, notices=tuple(notices),
-        domain_hash=domain.source_hash, meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION,
-                                              "assembly_seconds": assembled, "newton": newton},
+        interfaces=tuple(interfaces), cavities=tuple(cavities), domain_hash=domain.source_hash,
+        meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
+              "newton": newton, "radiative_paths": paths},
     )
+
+
+def supplying(balance) -> list[dict]:
+    """Balance records of fixed ambients (convection or radiation to a given temperature) that supply net
+    heat to the solids: in a sealed box at steady state that is heat from nothing (model the air as a
+    cavity).  Flows below ``SUPPLY_WARNING`` of the largest one are round-off."""
+    scale = max((abs(r["heat_in_W"]) for r in balance), default=0.0)
+    return [r for r in balance if r["kind"] in ("convection", "radiation") and r["heat_in_W"] > 0
+            and r["heat_in_W"] > SUPPLY_WARNING * scale]
 
 
 def _initial_temperature(spec: HeatSpec) -> float:
@@ -231,6 +331,7 @@ def _initial_temperature(spec: HeatSpec) -> float:
     iterate is then the solution linearised about it (exact for a linear problem)."""
     values = [v for v in spec.fixed_temperature.values() if not callable(v)]
     values += [c.ambient for c in spec.convection.values()] + [r.surroundings for r in spec.radiation.values()]
+    values += [g.surroundings for g in spec.exchange.values() if g.surroundings is not None]
     return float(np.mean(values)) if values else 293.15
 
 
@@ -260,26 +361,78 @@ class _Problem:
         self.space, self.geom = fem.space(domain, spec.order), fem.geometry(domain)
         self.ref = kernels.reference(spec.order, kernels.degree_mass(spec.order))
         self.ordered = sorted(domain.parts)
-        self.b = np.zeros(self.space.N)
+        self.n = self.space.N + len(spec.cavities)  # the cavities' air temperatures follow the dofs
+        self.b = np.zeros(self.n)
         degree = kernels.degree_mass(spec.order)
+        self.contacts = {name: ties.contact_term(self.space, self.geom, domain.contacts[name], h)
+                         for name, h in spec.contacts.items()}
+        self.cavities = [(name, c, [(s, h, kernels.Facets(self.space, self.geom, domain.surfaces[s], degree))
+                                    for s, h in c.films.items()]) for name, c in spec.cavities.items()]
+        tie = ties.continuity(domain, self.space, spec.tied)
+        pad = sp.identity(len(spec.cavities), format="csr")
+        self.tie = ties.Continuity(sp.block_diag([tie.P, pad], format="csr"), tie.tied)
+        #: the field's dofs from the unknowns (tied dofs recomputed, the cavities' air left out)
+        self.lift = (sp.eye(self.space.N, self.n, format="csr") @ self.tie.P).tocsr()
         self.losses = [(name, "convection", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), c)
                        for name, c in spec.convection.items()]
         self.losses += [(name, "radiation", kernels.Facets(self.space, self.geom, domain.surfaces[name], degree), r)
                         for name, r in spec.radiation.items()]
         self.varies = any(m.conductivity_varies for m in spec.materials.values())
+        self._fixed = self._fixed_terms()
         self.linear = not spec.radiation and all(c.exponent == 0 for c in spec.convection.values()) and \
             not self.varies
+        self.exchange = exchange_mod.Coupling(self.space, self.geom, spec.view, spec.exchange, degree) \
+            if spec.exchange else None
+        self.linear = self.linear and not self.exchange
         self.outside = 0
         self._constant = None if self.varies else self._conduction_matrix()
 
     def _conduction_matrix(self):
-        """Conduction matrix for conductivities constant per part (exact quadrature)."""
+        """Conduction matrix for conductivities constant per part (exact quadrature), with the contacts
+        and cavities, on all unknowns."""
         out = kernels.Assembler(self.space.N)
         for part in self.ordered:
             k = self.spec.materials[part].conductivity_tensor()
             kernels.conduction(self.space, self.geom, self.domain.parts[part], k,
                                kernels.degree_stiffness(self.spec.order), out)
-        return out.matrix()
+        return self._pad(out.matrix()) + self._fixed
+
+    def _pad(self, J):
+        """A matrix on the field's dofs extended by zeros to all unknowns (the cavities' air)."""
+        extra = self.n - self.space.N
+        return sp.block_diag([J, sp.csr_matrix((extra, extra))], format="csr") if extra else J.tocsr()
+
+    def _fixed_terms(self):
+        """Matrix of the terms linear in T with constant coefficients: contacts, and the cavities'
+        films and ventilation: [[M_s, -m_s], [-m_s^T, sum_s h A_s + m_dot c_p]] per cavity."""
+        n, N = self.n, self.space.N
+        out = sp.csr_matrix((n, n))
+        for term in self.contacts.values():
+            out = out + self._pad(term.matrix)
+        for i, (_, c, films) in enumerate(self.cavities):
+            a = N + i
+            for _, h, facets in films:
+                couple = facets.load(h)  # int h v_i dA
+                air = sp.csr_matrix((-couple, (np.arange(N), np.full(N, a))), shape=(n, n))
+                out = out + self._pad(facets.mass(h).matrix()) + air + air.T
+                out = out + sp.csr_matrix(([couple.sum()], ([a], [a])), shape=(n, n))
+            out = out + sp.csr_matrix(([c.ventilation], ([a], [a])), shape=(n, n))
+        return out.tocsr()
+
+    def cavity_records(self, T) -> list[dict]:
+        """Per cavity: air temperature [K], heat from each film surface into the air [W], ventilation [W]."""
+        out = []
+        for i, (name, c, films) in enumerate(self.cavities):
+            air = float(T[self.space.N + i])
+            watts = {s: facets.integral(h * (facets.values(T) - air)) for s, h, facets in films}
+            out.append({"name": name, "temperature_K": air, "films_W": watts, "from_solids_W": float(sum(watts.values())),
+                        "ventilation_W": float(c.ventilation * (air - c.inlet)), "ventilation_W_per_K": c.ventilation,
+                        "inlet_K": c.inlet})
+        return out
+
+    def complete(self, T):
+        """T with its tied dofs recomputed from the others."""
+        return self.tie.expand(T)
 
     def _conductivity(self, t_qp):
         """K(T) and dK/dT at the quadrature points: (nel, 3, 3, nq)."""
@@ -301,17 +454,21 @@ class _Problem:
         return kernels.interpolate(self.space, self.geom, ids, T, self.ref, grad=True)
 
     def residual(self, T):
+        """P^T R(T) on all unknowns (rows of tied dofs are zero) [W]."""
         if self._constant is not None:
             r = self._constant @ T - self.b
         else:
             t, g = self._field(T)
             k, _ = self._conductivity(t)
             flux = np.einsum("nijq,njq->niq", k, g)
-            r = kernels.flux_load(self.space, self.geom, np.arange(len(t)), flux, self.ref) - self.b
+            r = self._fixed @ T - self.b
+            r[: self.space.N] += kernels.flux_load(self.space, self.geom, np.arange(len(t)), flux, self.ref)
         for _, kind, facets, c in self.losses:
             loss, _ = _surface_loss(kind, c, facets.values(T))
-            r = r + facets.load(loss)
-        return r
+            r[: self.space.N] += facets.load(loss)
+        if self.exchange:
+            r[: self.space.N] += self.exchange.residual(T[: self.space.N])
+        return self.tie.load(r)
 
     def tangent(self, T):
         if self._constant is not None:
@@ -322,14 +479,16 @@ class _Problem:
             ids, degree = np.arange(len(t)), kernels.degree_mass(self.spec.order)
             out = kernels.conduction(self.space, self.geom, ids, k, degree)
             kernels.advection(self.space, self.geom, ids, np.einsum("nijq,njq->niq", dk, g), degree, out)
-            J = out.matrix()
+            J = self._pad(out.matrix()) + self._fixed
         if self.losses:
             films = kernels.Assembler(self.space.N)
             for _, kind, facets, c in self.losses:
                 _, slope = _surface_loss(kind, c, facets.values(T))
                 facets.mass(slope, films)
-            J = J + films.matrix()
-        return J.tocsr()
+            J = J + self._pad(films.matrix())
+        if self.exchange:
+            J = J + self._pad(self.exchange.tangent(T[: self.space.N]))
+        return self.tie.reduce(J)
 
 
 def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
@@ -343,11 +502,15 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
         if iteration == 1:  # measure residuals against the size of the terms that cancel in them
             scale = max(scale, float(np.linalg.norm((abs(J) @ np.abs(T))[free])))
         A = J if len(free) == len(T) else J[free][:, free]
-        delta, record = solvers.solve(A, -r[free], method=spec.solver, memory_limit=spec.memory_limit)
+        if problem.exchange:  # its exact tangent adds a dense low-rank block (stages/exchange.py)
+            delta, record = problem.exchange.step(A, -r[free], free, spec.solver, problem.lift)
+        else:
+            delta, record = solvers.solve(A, -r[free], method=spec.solver, memory_limit=spec.memory_limit)
         step, norm0 = 1.0, float(np.linalg.norm(r[free]))
         while True:
             trial = T.copy()
             trial[free] += step * delta
+            trial = problem.complete(trial)
             r_trial = problem.residual(trial)
             if np.linalg.norm(r_trial[free]) <= (1 - 1e-4 * step) * norm0 or step < 1 / 64 or problem.linear:
                 break
@@ -369,12 +532,28 @@ def _newton(problem: _Problem, T, free, spec: HeatSpec, where: str):
 
 def check_steady_state(domain, spec: HeatSpec, where: str) -> None:
     """A steady state needs every connected body to reach a convection or fixed-temperature surface."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
     count, label = domain.bodies
     sinks = list(spec.convection) + list(spec.fixed_temperature) + [
         s for s, r in spec.radiation.items() if r.emissivity > 0]  # emissivity 0 removes no heat
-    reached = np.zeros(count, dtype=bool)
+    sinks += [s for n, g in spec.exchange.items() if g.surroundings is not None for s in spec.view.groups[n].surfaces]
+    reached = np.zeros(count + len(spec.cavities), dtype=bool)
     for name in sinks:
         reached[label[domain.mesh.facets[:, domain.surfaces[name]].ravel()]] = True
+    links = [(count, count)]  # bodies that exchange heat through a cavity's air form one group
+    for i, c in enumerate(spec.cavities.values()):
+        reached[count + i] = c.ventilation > 0
+        links += [(count + i, int(b)) for s in c.films for b in np.unique(label[domain.mesh.facets[:, domain.surfaces[s]]])]
+    for name in spec.exchange:  # bodies that exchange radiation with each other form one group too
+        bodies = np.unique(label[domain.mesh.facets[:, np.concatenate([domain.surfaces[s] for s in
+                                                                       spec.view.groups[name].surfaces])].ravel()])
+        links += [(int(bodies[0]), int(b)) for b in bodies]
+    r, c = np.array(links).T
+    n = count + len(spec.cavities) + 1
+    _, group = connected_components(coo_matrix((np.ones(len(r)), (r, c)), shape=(n, n)), directed=False)
+    reached = np.isin(group[:count], group[: n - 1][reached])
     problems = []
     for c in np.flatnonzero(~reached):
         parts = domain.body_parts(c)
@@ -419,9 +598,12 @@ def _probe_values(domain, order, T, probes, where) -> dict[str, float]:
 
 def _adiabatic(domain, spec: HeatSpec) -> tuple[str, ...]:
     used = set(spec.convection) | set(spec.fixed_temperature) | set(spec.flux) | set(spec.radiation)
+    used |= {s for c in spec.cavities.values() for s in c.films}
+    used |= {s for n in spec.exchange for s in spec.view.groups[n].surfaces}
     out = [s for s in sorted(domain.surfaces) if s not in used]
     boundary = domain.boundary_facets()
-    named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] or [np.zeros(0, dtype=np.int64)])
+    joined = [f for c in domain.contacts.values() for f in c.facets] + [f for t in domain.ties.values() for f in t.facets]
+    named = np.concatenate([domain.surfaces[s] for s in domain.surfaces] + joined or [np.zeros(0, dtype=np.int64)])
     rest = np.setdiff1d(boundary, named)
     if len(rest):
         out.append(f"(boundary in no surface group: {len(rest)} facets, {domain.facet_areas(rest).sum():.4g} m^2)")

@@ -326,7 +326,8 @@ def strain_operator(G: np.ndarray) -> np.ndarray:
 
 def stiffness(space: Space, geom: Geometry, ids, c: np.ndarray, degree: int,
               out: Assembler | None = None) -> Assembler:
-    """Matrix of int eps(v) : C eps(u) with C (6, 6) [Pa] in engineering Voigt form, on vector P``order``."""
+    """Matrix of int eps(v) : C eps(u) with C (6, 6) [Pa] in engineering Voigt form, on vector P``order``;
+    C may also be (len(ids), nq, 6, 6), one per quadrature point of ``reference(order, degree)``."""
     ref = reference(space.order, degree)
     out = out or Assembler(3 * space.N)
     ids = np.asarray(ids)
@@ -334,7 +335,7 @@ def stiffness(space: Space, geom: Geometry, ids, c: np.ndarray, degree: int,
         e = ids[s]
         B = strain_operator(gradients(geom, ref, e))  # (n, q, 6, m)
         w = geom.det[e][:, None] * ref.weights
-        CB = np.matmul(c, B) * w[:, :, None, None]
+        CB = np.matmul(c if c.ndim == 2 else c[s], B) * w[:, :, None, None]
         n, q, _, m = B.shape
         blocks = np.matmul(B.reshape(n, q * 6, m).transpose(0, 2, 1), CB.reshape(n, q * 6, m))
         out.add(vector_dofs(space.element_dofs[:, e].T), blocks)

@@ -1,6 +1,7 @@
 """Stress recovery: one recovered stress field per part, used by every figure, probe and line.
 
-sigma = C (eps(u) - alpha (T - T_ref)) at the quadrature points.  The recovered field is the L2
+sigma = C(T) (eps(u) - eps_th(T, T_ref)) at the quadrature points (eps_th = alpha (T - T_ref) for a
+constant coefficient; ``model.curves`` for temperature-dependent properties).  The recovered field is the L2
 projection of sigma onto the displacement's polynomial space restricted to one part (continuous within
 the part, never averaged across a bonded interface).  Part figures, safety factors, probes and lines
 read that field at its nodes (peaks) or interpolate it (points); the largest quadrature-point value is
@@ -38,19 +39,46 @@ class PartModel:
     material: object
 
 
+def temperature(domain, load, ids, ref: kernels.Reference) -> np.ndarray:
+    """(n, nq) T [K] at ``ref``'s points of the elements ``ids``."""
+    return kernels.interpolate(fem.space(domain, load.order), fem.geometry(domain), ids, load.temperature,
+                               kernels.with_order(ref, load.order))
+
+
 def temperature_rise(domain, load, ids, ref: kernels.Reference) -> np.ndarray:
     """(n, nq) T - T_ref [K] at ``ref``'s points of the elements ``ids``."""
-    t = kernels.interpolate(fem.space(domain, load.order), fem.geometry(domain), ids, load.temperature,
-                            kernels.with_order(ref, load.order))
-    return t - load.reference[ids][:, None]
+    return temperature(domain, load, ids, ref) - load.reference[ids][:, None]
+
+
+def stiffness_at(domain, model: PartModel, load, ref) -> np.ndarray:
+    """C [Pa] of the part: (6, 6), or (n, nq, 6, 6) at ``ref``'s points when E or nu depends on T
+    (without a thermal load: the constant C of the nominal values)."""
+    if load is None or not model.material.stiffness_varies:
+        return model.c
+    return constitutive.stiffness_at(model.material, temperature(domain, load, model.ids, ref))
+
+
+def thermal_strain(domain, model: PartModel, load, ref) -> np.ndarray:
+    """(n, 6, nq) thermal strain from the stress-free temperature at ``ref``'s points (alpha dT for a
+    constant coefficient; the integrated or mean-convention strain of an expansion curve)."""
+    if "expansion" not in model.material.curves:
+        return np.einsum("s,nq->nsq", model.alpha, temperature_rise(domain, load, model.ids, ref))
+    t = temperature(domain, load, model.ids, ref)
+    eps = constitutive.thermal_strain(model.material, t, np.broadcast_to(load.reference[model.ids][:, None], t.shape))
+    return np.moveaxis(eps, 0, 1)
+
+
+def apply(c: np.ndarray, eps: np.ndarray) -> np.ndarray:
+    """C eps for (n, 6, nq) strains, C (6, 6) or (n, nq, 6, 6)."""
+    return np.einsum("st,ntq->nsq", c, eps) if c.ndim == 2 else np.einsum("nqst,ntq->nsq", c, eps)
 
 
 def stress_at_points(domain, model: PartModel, u: np.ndarray, order: int, load, ref) -> np.ndarray:
     """(n_elements_of_part, 6, nq) stresses [Pa] at ``ref``'s points."""
     eps = kernels.strains(fem.space(domain, order), fem.geometry(domain), model.ids, u, ref)
     if load is not None:
-        eps = eps - np.einsum("s,nq->nsq", model.alpha, temperature_rise(domain, load, model.ids, ref))
-    return np.einsum("st,ntq->nsq", model.c, eps)
+        eps = eps - thermal_strain(domain, model, load, ref)
+    return apply(stiffness_at(domain, model, load, ref), eps)
 
 
 def nodal_stress(domain, model: PartModel, sigma: np.ndarray, order: int, ref) -> tuple[np.ndarray, np.ndarray]:

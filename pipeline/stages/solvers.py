@@ -280,6 +280,13 @@ class Prepared:
                 "" if self.symmetric else " of the symmetric part")
         self.setup_seconds = time.perf_counter() - start
 
+    def preconditioner(self) -> spla.LinearOperator:
+        """This preparation as a preconditioner for a nearby matrix (an earlier step's): one AMG cycle,
+        or one solve with the kept factorisation."""
+        if self.method == "direct":
+            return spla.LinearOperator(self.A.shape, matvec=self._direct.solve, dtype=float)
+        return self._amg.preconditioner()
+
     @property
     def accel(self) -> str:
         return "cg" if self.symmetric else "gmres"
@@ -346,6 +353,13 @@ class Prepared:
             except _Stalled:
                 x, stalled = self._last, True
         return np.asarray(x, dtype=float).ravel(), stalled
+
+    def approximate_inverse(self):
+        """x -> A^-1 x approximately, a fixed linear map for preconditioning an outer Krylov solve:
+        the factorisation (exact), or one AMG V-cycle."""
+        if self.method == "direct":
+            return self._direct.solve
+        return self._amg.preconditioner().matvec
 
     def _watch(self, history: list[float], bnorm: float):
         """Log every tenth iteration; stop a stalled iteration: less than 2x in the last 30 below a

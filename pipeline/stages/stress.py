@@ -3,8 +3,11 @@
 Weak form: find u with the supports' constraints such that for every admissible v
     int eps(v) : C eps(u) dV + sum_spring int k u.v dA
         = int eps(v) : C alpha (T - T_ref) dV + int b.v dV + sum_pressure int -p n.v dA + sum_force int t.v dA
-Parts that share nodes are bonded.  C and alpha are constant per part (in model coordinates, from the
-part's material axes), so the thermal mismatch at a bonded interface is never averaged away.
+Parts that share nodes are bonded; split interfaces and ties keep their sides together (``ties``).  C and
+alpha are per part (in model coordinates, from the part's material axes), so the thermal mismatch at a
+bonded interface is never averaged away; with E(T), nu(T) or an expansion curve (``model.curves``) they
+are evaluated at each quadrature point from the mapped temperature, and the thermal strain is the
+curve's strain from the stress-free temperature T_ref.
 Units: u [m], sigma and p [Pa], k [N/m^3], b [N/m^3], forces [N], T [K].
 """
 
@@ -20,7 +23,8 @@ import scipy.sparse as sp
 from .. import errors
 from ..fields import StressField, ThermalLoad
 from ..model.materials import Material
-from . import constitutive, features, fem, kernels, recovery, solvers, supports
+from ..model.mesh import touching_problems
+from . import constitutive, features, fem, kernels, recovery, solvers, supports, ties
 from .supports import Support
 
 STAGE_VERSION = 2
@@ -40,6 +44,7 @@ class StressSpec:
     probes: name -> (x, y, z) [m].  lines: name -> (start (x, y, z) [m], end [m], number of points >= 2).
     order: 2 (default) or 1.  solver: "auto", "direct" or "amg".
     memory_limit: bytes the stage may use (default: what is available); checked before assembly.
+    preload: pretension section (a "section" joint) -> bolt preload [N], tension positive (``ties.preloaded``).
     """
 
     materials: Mapping[str, Material]
@@ -53,6 +58,7 @@ class StressSpec:
     solver: str = "auto"
     memory_limit: float | None = None
     lines: Mapping[str, tuple] = field(default_factory=dict)
+    preload: Mapping[str, float] = field(default_factory=dict)
 
 
 def check(domain, spec: StressSpec, where: str = "stress") -> None:
@@ -93,6 +99,15 @@ def check(domain, spec: StressSpec, where: str = "stress") -> None:
             problems.append(f"{where}: material '{m.name}' needs a Poisson ratio in (-1, 0.5)")
     fem.check_probes(domain, spec.probes, where, problems)
     problems += _line_problems(spec.lines, where)
+    problems += touching_problems(domain, where)  # parts meshed apart need a joint first
+    problems += [errors.unknown_name("pretension section", n, domain.contacts, f"{where}.preload")
+                 for n in spec.preload if n not in domain.contacts]
+    problems += [f"{where}.preload.{n}: a preload must be a finite force [N], got {v}" for n, v in spec.preload.items()
+                 if not np.isfinite(v)]
+    if spec.preload and any(s.kind == "contact" for s in spec.supports.values()):
+        problems.append(f"{where}: bolt preloads are found by superposing linear solutions, which a contact support "
+                        "(it lifts off: not linear) does not allow; use a fixed, symmetry or spring support with "
+                        "preload, or drop the preload")
     if spec.order in fem.ORDERS and not problems:
         try:
             solvers.check_memory(3 * fem.unknowns(domain, spec.order), spec.order, 3, spec.solver, spec.memory_limit,
@@ -127,6 +142,8 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     space, geom = fem.space(domain, spec.order), fem.geometry(domain)
     n = 3 * space.N
     rows, pdofs, xyz = supports.gather(domain, space, spec.supports, where)
+    tie = ties.continuity(domain, space, domain.contacts, where)  # split interfaces and ties move together
+    rows, tie = ties.move_rows(tie, rows, {n for n, s in spec.supports.items() if s.kind == "minimal"}, where)
     spring_points = [space.facet_dofs(domain.surfaces[name]) for name, s in spec.supports.items() if s.kind == "spring"]
     supports.free_motions(domain, rows, xyz, np.concatenate(spring_points) if spring_points else
                           np.zeros(0, dtype=np.int64), where)
@@ -140,11 +157,20 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for part in sorted(domain.parts):
         ids = domain.parts[part]
         material = spec.materials[part]
-        c, alpha = constitutive.stiffness_matrix(material), constitutive.expansion_vector(material)
-        kernels.stiffness(space, geom, ids, c, kernels.degree_stiffness(spec.order), stiffness)
+        model = recovery.PartModel(ids, constitutive.stiffness_matrix(material),
+                                   constitutive.expansion_vector(material), material)
+        # with E(T) or nu(T) the integrands are not polynomials: one more degree per temperature order, and
+        # for an expansion curve (linear alpha(T): a strain quadratic in T) two
+        k_extra = load.order if load is not None and material.stiffness_varies else 0
+        k_degree = kernels.degree_stiffness(spec.order, k_extra)
+        kernels.stiffness(space, geom, ids, recovery.stiffness_at(domain, model, load, kernels.reference(
+            spec.order, k_degree)), k_degree, stiffness)
         if load is not None:
-            dt = recovery.temperature_rise(domain, load, ids, thermal_ref)
-            f_thermal += kernels.strain_load(space, geom, ids, np.einsum("st,t,nq->nsq", c, alpha, dt), thermal_ref)
+            curved = "expansion" in material.curves
+            ref = thermal_ref if not (k_extra or curved) else kernels.reference(
+                spec.order, spec.order - 1 + k_extra + load.order * (2 if curved else 1))
+            f_thermal += kernels.strain_load(space, geom, ids, recovery.apply(
+                recovery.stiffness_at(domain, model, load, ref), recovery.thermal_strain(domain, model, load, ref)), ref)
         b = np.zeros((len(ids), 3, len(loads_ref.weights)))
         if spec.gravity is not None:
             b += material.density * np.asarray(spec.gravity, float)[None, :, None]
@@ -152,7 +178,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
             b += np.moveaxis(spec.body_force[part](geom.points(loads_ref, ids)), 0, 1)
         if b.any():
             f_mech += kernels.vector_load(space, geom, ids, b, loads_ref)
-        per_part[part] = recovery.PartModel(ids, c, alpha, material)
+        per_part[part] = model
 
     degree = kernels.degree_mass(spec.order)
     for name, p in spec.pressure.items():
@@ -168,8 +194,15 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
     for ks in springs.values():
         K = K + ks
     assembled = time.perf_counter() - start
-    u, residual, record, constraints, held = _solve_supported(domain, K, f_thermal + f_mech, rows, pdofs, xyz,
-                                                              constraints, space, spec, where)
+    if spec.preload:  # linear superposition of the shortenings (ties.preloaded): no contact supports
+        solve_ = lambda A, b, c: _solve_constrained(A, b, c, space, spec)  # noqa: E731
+        u, residual, record, bolts = ties.preloaded(K, f_thermal + f_mech, constraints, tie, domain, space,
+                                                    dict(spec.preload), solve_)
+        held = {}
+    else:
+        bolts = {}
+        u, residual, record, constraints, held = _solve_supported(domain, K, f_thermal + f_mech, rows, pdofs, xyz,
+                                                                  constraints, space, spec, where, tie)
     del K
     reactions = constraints.reactions(residual, pdofs)
     for name, ks in springs.items():
@@ -193,7 +226,7 @@ def solve(domain, load: ThermalLoad | None, spec: StressSpec, where: str = "stre
         temperature=recovery.at_points(domain, spec.order, load) if load is not None else np.zeros(0),
         reference=np.asarray(load.reference, float) if load is not None else np.zeros(0),
         meta={"seconds": time.perf_counter() - start, "stage_version": STAGE_VERSION, "assembly_seconds": assembled,
-              "stress_order": "xx, yy, zz, yz, xz, xy",
+              "stress_order": "xx, yy, zz, yz, xz, xy", "preload": bolts,
               "recovery": "L2 projection within each part (nodal peaks; quadrature maximum beside)"},
     )
 
@@ -219,12 +252,19 @@ def _solve_constrained(K, f, constraints, space, spec):
     return T @ ul, T @ (Kl @ ul - fl), record
 
 
-def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, where):
-    """The constrained solve, repeated by the contact active set when a support is of kind contact.
-    Returns u, residual, solve record, the final constraints and the contact records."""
+def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, where, tie):
+    """The constrained solve (tied dofs following their partners, ``tie``), repeated by the contact
+    active set when a support is of kind contact.  Returns u, residual, solve record, the final
+    constraints and the contact records."""
+    reduced, load = tie.reduce(K), tie.load(f)
+
+    def solve(c):
+        w, r, record = _solve_constrained(reduced, load, ties.with_tied(c, tie), space, spec)
+        return tie.expand(w), r, record
+
     surfaces = supports.normal_surfaces(domain, space, spec.supports, ("contact",), where)
     if not surfaces:
-        return (*_solve_constrained(K, f, constraints, space, spec), constraints, {})
+        return (*solve(constraints), constraints, {})
     springs = [space.facet_dofs(domain.surfaces[n]) for n, s in spec.supports.items() if s.kind == "spring"]
     spring_points = np.concatenate(springs) if springs else np.zeros(0, dtype=np.int64)
 
@@ -235,8 +275,7 @@ def _solve_supported(domain, K, f, rows, pdofs, xyz, constraints, space, spec, w
             raise errors.PhysicsError([p + " (the contact supports lift off where they would pull, and what is left "
                                        "does not hold the body)" for p in exc.problems]) from None
 
-    return supports.contact_solve(lambda c: _solve_constrained(K, f, c, space, spec), rows, pdofs, len(f),
-                                  surfaces, motion, where)
+    return supports.contact_solve(solve, rows, pdofs, len(f), surfaces, motion, where)
 
 
 def _support_records(domain, space, given, constraints, residual, pdofs, held, reactions, where):

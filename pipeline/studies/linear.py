@@ -27,6 +27,7 @@ from ..stages.solvers import SolveRecord
 def nonlinear_terms(spec: heat.HeatSpec) -> list[str]:
     """What makes a heat problem nonlinear (empty when it is linear)."""
     out = [f"radiation on {s}" for s in spec.radiation]
+    out += [f"radiation exchange in group {g}" for g in spec.exchange]
     out += [f"convection exponent {c.exponent:g} on {s}" for s, c in spec.convection.items() if c.exponent != 0]
     out += [f"temperature-dependent conductivity of part {p} ({m.name})"
             for p, m in spec.materials.items() if m.conductivity_varies]
@@ -99,7 +100,8 @@ def _superpose(name: str, missing: list) -> dict:
                                                                if p not in swept}), where=first.where)
     homogeneous = dataclasses.replace(
         spec, generation={}, flux={}, fixed_temperature={s: 0.0 for s in spec.fixed_temperature},
-        convection={s: dataclasses.replace(c, ambient=0.0) for s, c in spec.convection.items()})
+        convection={s: dataclasses.replace(c, ambient=0.0) for s, c in spec.convection.items()},
+        cavities={n: dataclasses.replace(c, inlet=0.0) for n, c in spec.cavities.items()})
     units = {p: heat.solve(domain, dataclasses.replace(homogeneous, power={p: 1.0}), where=first.where)
              for p in swept}
     solve_seconds = time.perf_counter() - start
@@ -147,8 +149,31 @@ def combine(domain, spec: heat.HeatSpec, base: TemperatureField, units: dict[str
     return TemperatureField(
         temperature=T, order=base.order, vertices=base.vertices, parts=parts, balance=tuple(balance), probes=probes,
         loads=tuple(loads), adiabatic=base.adiabatic, solver=record, notices=tuple(notices),
+        interfaces=tuple(_interfaces(domain, spec, base.order, T)), cavities=tuple(_cavities(base, units, coeff)),
         domain_hash=base.domain_hash, meta={"stage_version": heat.STAGE_VERSION, "newton": [],
                                             "superposition": {"unit_W": coeff, "parts": sorted(units)}})
+
+
+def _interfaces(domain, spec: heat.HeatSpec, order: int, T: np.ndarray) -> list[dict]:
+    """Interface records recomputed from the superposed field (the largest drop is not a sum)."""
+    from ..stages import fem, ties
+
+    space, geom = fem.space(domain, order), fem.geometry(domain)
+    return [ties.contact_term(space, geom, domain.contacts[n], h).record(n, domain.contacts[n], T)
+            for n, h in spec.contacts.items()]
+
+
+def _cavities(base: TemperatureField, units: dict[str, TemperatureField], coeff: dict[str, float]) -> list[dict]:
+    """Cavity records: air temperature and heat flows are linear in the powers."""
+    out = []
+    for i, c in enumerate(base.cavities):
+        def add(key, sub=None):
+            pick = (lambda r: r[key][sub]) if sub else (lambda r: r[key])
+            return float(pick(c) + sum(w * pick(units[p].cavities[i]) for p, w in coeff.items()))
+
+        out.append(dict(c, temperature_K=add("temperature_K"), from_solids_W=add("from_solids_W"),
+                        ventilation_W=add("ventilation_W"), films_W={s: add("films_W", s) for s in c["films_W"]}))
+    return out
 
 
 def _row(field: TemperatureField, row: dict) -> dict | None:

@@ -13,6 +13,8 @@ import math
 import re
 from pathlib import Path
 
+import numpy as np
+
 from .. import files
 from ..outputs.report import STYLE, escape, table
 from ..outputs.summary import CAUTION, write_text
@@ -93,7 +95,76 @@ def sweep_plots(folder: Path, record: dict, names: list[str], against: str) -> l
             fig.savefig(tmp, format="png")
         plt.close(fig)
         out.append({"figure": name, "file": file, "against": against})
-    return out
+    sensitivity = tornado(folder, record, names) if len(record["axes"]) > 1 else None
+    return out + ([sensitivity] if sensitivity else [])
+
+
+def tornado(folder: Path, record: dict, names: list[str], file: str = "tornado.png") -> dict | None:
+    """Sensitivity of each figure to each swept axis, from the sweep's own runs: the other axes held at
+    their middle values, the bar spans the figure's change from that baseline over the axis's values
+    (ends labelled with the values reached).  One panel per figure, axes sorted by span; None when
+    the baseline run is missing or failed."""
+    from matplotlib.figure import Figure
+    import matplotlib as mpl
+
+    from ..outputs import style
+
+    axes = record["axes"]
+    index = {}
+    for r in record["rows"]:
+        if r["status"] == "failed":
+            continue
+        try:
+            at = tuple([list(v) for v in a["values"]].index([r["values"][k] for k in a["keys"]]) for a in axes)
+        except ValueError:
+            continue
+        index[at] = r["figures"]
+    middle = tuple(len(a["values"]) // 2 for a in axes)
+    if middle not in index:
+        return None
+    panels = []
+    for name in names:
+        base = index[middle].get(name)
+        if base is None or not math.isfinite(base):
+            continue
+        bars = []
+        for i, a in enumerate(axes):
+            got = [(index[at][name], j) for j in range(len(a["values"]))
+                   if (at := middle[:i] + (j,) + middle[i + 1:]) in index and index[at].get(name) is not None]
+            if len(got) > 1:
+                (lo, jl), (hi, jh) = min(got), max(got)
+                label = lambda j: ", ".join(_cell(x) for x in a["values"][j][:1])
+                bars.append((a["keys"][0] + (f" (+{len(a['keys']) - 1})" if len(a["keys"]) > 1 else ""),
+                             lo - base, hi - base, label(jl), label(jh)))
+        if bars:
+            panels.append((name, base, sorted(bars, key=lambda b: b[2] - b[1])))
+    if not panels:
+        return None
+    with mpl.rc_context(style.rc()):
+        fig = Figure(figsize=(8.0, 1.2 + sum(0.5 * len(p[2]) + 0.9 for p in panels)), dpi=style.DPI)
+        grid = fig.subplots(len(panels), 1, squeeze=False,
+                            gridspec_kw={"height_ratios": [len(p[2]) + 1 for p in panels]})[:, 0]
+        for ax, (name, base, bars) in zip(grid, panels):
+            y = np.arange(len(bars))
+            ax.barh(y, [b[2] - b[1] for b in bars], left=[b[1] for b in bars], color=style.PASS,
+                    edgecolor=style.INK, linewidth=0.6)
+            for k, (_, lo, hi, vlo, vhi) in enumerate(bars):
+                if hi - lo <= 1e-12 * max(abs(base), 1e-300):
+                    ax.annotate("no change", (0, k), xytext=(6, 0), textcoords="offset points", va="center", fontsize=8)
+                    continue
+                ax.annotate(vlo, (lo, k), xytext=(-4, 0), textcoords="offset points", ha="right", va="center", fontsize=8)
+                ax.annotate(vhi, (hi, k), xytext=(4, 0), textcoords="offset points", ha="left", va="center", fontsize=8)
+            ax.axvline(0, color=style.INK, linewidth=1.0)
+            ax.set_yticks(y, [b[0] for b in bars], fontsize=8)
+            ax.set_title(f"{name} (baseline run: {base:.4g})", fontsize=10)
+            span = max(max(abs(b[1]), abs(b[2])) for b in bars) or 1.0
+            ax.set_xlim(-1.6 * span, 1.6 * span)
+        grid[-1].set_xlabel("change from the baseline run (other axes at their middle values), in the figure's unit")
+        fig.tight_layout()
+        fig.savefig(folder / file)
+    return {"figure": ", ".join(p[0] for p in panels), "file": file, "against": "each swept axis (tornado chart)",
+            "baseline": {k: _cell(v) for a, j in zip(axes, middle) for k, v in zip(a["keys"], a["values"][j])},
+            "bars": {p[0]: [list(b) for b in p[2]] for p in panels}}
 
 
 def _img(folder: Path, file: str, caption: str) -> str:

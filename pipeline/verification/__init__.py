@@ -29,7 +29,7 @@ from .. import __version__, errors
 LEVELS = ("quick", "default", "fine")
 #: display unit -> (factor, offset) from SI
 UNITS = {"degC": (1.0, -273.15), "K": (1.0, 0.0), "W": (1.0, 0.0), "W/m": (1.0, 0.0), "MPa": (1e-6, 0.0), "mm": (1e3, 0.0),
-         "1/m": (1.0, 0.0), "-": (1.0, 0.0), "N": (1.0, 0.0), "mm^2": (1e6, 0.0)}
+         "1/m": (1.0, 0.0), "-": (1.0, 0.0), "N": (1.0, 0.0), "mm^2": (1e6, 0.0), "K/W": (1.0, 0.0)}
 
 
 @dataclass(frozen=True)
