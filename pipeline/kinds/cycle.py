@@ -204,14 +204,9 @@ def outputs(domain, field: CycleField):
 def figures(folder, name, entry, field, domain, context) -> list[dict]:
     from ..outputs import figures as fig
 
-    path = folder / f"{name}_range.png"
-    grid = fig._grid(domain, cell_data={"range": field.equivalent_range / 1e6})
-    surface = grid.extract_surface(algorithm="dataset_surface")
-    shown = surface.cell_data["range"]
-    clim = (float(shown.min()), float(shown.max()))
-    fig._render(path, surface, "range", "stress range [MPa]", fig.STRESS_MAP, clim,
-                f"equivalent stress range: von Mises of the difference between {' / '.join(field.states)} (largest pair), element means")
-    return [{"file": path.name, "range": clim, "unit": "MPa"}]
+    return [fig.cell_values(folder / f"{name}_range.png", domain, field.equivalent_range / 1e6,
+                            f"{name}: equivalent stress range", "von Mises of the stress difference between "
+                            f"{' / '.join(field.states)} (largest pair), element means", "MPa")]
 
 
 def notices(name, entry, domain, context) -> list[Notice]:

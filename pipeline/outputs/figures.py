@@ -664,3 +664,21 @@ def difference(path: Path, domain, values: np.ndarray, title: str, unit: str, ce
             f"B - A, {shown.min():.3g} to {shown.max():.3g} {unit}; left from above, right from below",
             "difference", (-bound, bound), f"B - A [{unit}]")
     return _record(path, (float(shown.min()), float(shown.max())), unit)
+
+
+def cell_values(path: Path, domain, values: np.ndarray, title: str, subtitle: str, unit: str) -> dict:
+    """A per-element quantity >= 0 (e.g. a stress range) on the model's surface, seen from above and
+    from below, with the stress map."""
+    tri = skin(domain.points, domain.tetrahedra)[0]
+    shown = values[_owner(domain, tri)]
+    clim = (float(shown.min()), float(shown.max()))
+    if clim[1] - clim[0] <= 1e-6 * abs(clim[1]):  # uniform to round-off: one colour, not its noise
+        clim = (0.0, clim[1])
+    opts = _colours("stress", clim)
+    mesh = _poly(domain.points, tri, shown, cells=True)
+    above, _, _ = _render([(mesh, opts)], _oblique())
+    below, _, _ = _render([(mesh, opts)], _oblique((1.0, -1.4, -1.1)))
+    _figure(path, np.concatenate([above[:, 60:-60], below[:, 60:-60]], axis=1), title,
+            f"{subtitle}; {clim[0]:.3g} to {clim[1]:.3g} {unit}; left from above, right from below", "stress", clim,
+            unit)
+    return _record(path, clim, unit)
