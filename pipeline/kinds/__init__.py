@@ -37,7 +37,8 @@ _loaded_plugins = False
 
 #: hooks a kind may leave out, with what the runner does then
 OPTIONAL = {"outputs": base.no_outputs, "tables": base.no_tables, "figures": base.no_figures, "notices": base.no_notices,
-            "report": base.no_report, "console": base.no_console, "quantities": base.no_quantities}
+            "report": base.no_report, "console": base.no_console, "quantities": base.no_quantities,
+            "loads": base.no_loads}
 
 
 def register(module: ModuleType) -> ModuleType:

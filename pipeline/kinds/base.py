@@ -199,3 +199,7 @@ def no_console(entry) -> list[str]:
 
 def no_quantities(name, entry) -> dict:
     return {}
+
+
+def no_loads(name, entry) -> list:
+    return []

@@ -307,3 +307,43 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
                 f"{name}.interfaces.{r['name']}.mean_drop_K": r["mean_drop_K"]}
     out |= {f"{name}.cavities.{c['name']}.temperature_degC": c["temperature_degC"] for c in entry.get("cavities", [])}
     return out
+
+
+def loads(name: str, entry: dict) -> list[list[str]]:
+    """The report's rows of the heat stage's loads and boundaries: [stage, kind, where, value with units]."""
+    from ..model.finishes import FINISHES
+
+    o = entry.get("inputs", {}).get("options", {})
+    rows = [[name, "power", p, f"{w:g} W"] for p, w in o.get("power", {}).items()]
+    rows += [[name, "generation", p, f"{q:g} W/m^3"] for p, q in o.get("generation", {}).items()]
+    for s, f in o.get("flux", {}).items():
+        value = f"{f['per_area']:g} W/m^2" if f.get("per_area") is not None else f"{f.get('total', 0):g} W in total"
+        rows.append([name, "heat flux", s, value])
+    for s, c in o.get("convection", {}).items():
+        law = (f", h ~ dT^{c['exponent']:g} from {c['reference_difference']:g} K" if c.get("exponent") else "")
+        rows.append([name, "convection", s, f"h = {c['film_coefficient']:g} W/(m^2 K) to {_degC(c['ambient'])}{law}"])
+    for s, r in o.get("radiation", {}).items():
+        e = r["emissivity"]
+        value = f"{FINISHES[e][0]:g} ({e})" if isinstance(e, str) and e in FINISHES else f"{e}"
+        rows.append([name, "radiation", s, f"emissivity {value} to surroundings at {_degC(r['surroundings'])}"])
+    for g, x in o.get("radiation_exchange", {}).items():
+        sur = f"; rest of the view to {_degC(x['surroundings'])}" if x.get("surroundings") is not None else " (enclosure)"
+        rows.append([name, "radiation exchange", g, ", ".join(f"{k} {v}" for k, v in x.get("emissivity", {}).items()) + sur])
+    for c, cav in o.get("cavities", {}).items():
+        films = ", ".join(f"{s} {h:g} W/(m^2 K)" for s, h in cav.get("films", {}).items())
+        vent = f"; ventilation {cav['ventilation']:g} W/K from {_degC(cav['inlet'])}" if cav.get("ventilation") else "; sealed"
+        rows.append([name, "enclosed air (unknown temperature)", c, films + vent])
+    for i in entry.get("inputs", {}).get("interfaces", {}).items():
+        n, j = i
+        h = j.get("conductance") if j.get("conductance") is not None else (1 / j["resistance"] if j.get("resistance") else None)
+        value = j["kind"] + (f", h_c = {h:g} W/(m^2 K)" if h is not None else "")
+        rows.append([name, "interface", n + (f" ({' / '.join(j['parts'])})" if j.get("parts") else ""), value])
+    rows += [[name, "fixed temperature", s, _degC(t)] for s, t in o.get("fixed_temperature", {}).items()]
+    adiabatic = entry.get("adiabatic_surfaces", [])
+    if adiabatic:
+        rows.append([name, "adiabatic (no heat leaves)", ", ".join(adiabatic), "-"])
+    return rows
+
+
+def _degC(kelvin: float) -> str:
+    return f"{celsius(kelvin):.1f} degC"

@@ -150,3 +150,12 @@ def report(entry, context) -> list[str]:
     return [table(["method", "points outside", "largest distance [mm]", "mapped range [degC]"], [[
         d.get("method"), d.get("outside"), f"{d.get('max_distance_m', 0) * 1e3:.3g}",
         f"{celsius(d['mapped_min_K']):.2f} to {celsius(d['mapped_max_K']):.2f}"]])]
+
+
+def loads(name: str, entry: dict) -> list[list[str]]:
+    """The report's rows of the stress-free temperatures: [stage, kind, where, value]."""
+    o = entry.get("inputs", {}).get("options", {})
+    rows = [[name, "stress-free temperature", "all parts", f"{celsius(o['reference']):.1f} degC"]] \
+        if o.get("reference") is not None else []
+    return rows + [[name, "stress-free temperature", p, f"{celsius(t):.1f} degC"]
+                   for p, t in o.get("reference_by_part", {}).items()]

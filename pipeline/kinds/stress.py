@@ -360,3 +360,20 @@ def quantities(name: str, entry: dict) -> dict[str, float | None]:
     for support, r in entry.get("reactions_N", {}).items():
         out |= {f"{name}.reactions.{support}.{a}_N": v for a, v in zip("xyz", r)}
     return out
+
+
+def loads(name: str, entry: dict) -> list[list[str]]:
+    """The report's rows of the supports and mechanical loads: [stage, kind, where, value with units]."""
+    o = entry.get("inputs", {}).get("options", {})
+    rows = []
+    for s, sup in o.get("supports", {}).items():
+        given = ", ".join(f"{a} = {sup[a]:g} m" for a in "xyz" if sup.get(a) is not None)
+        stiff = f", {sup['stiffness']:g} N/m^3" if sup.get("stiffness") is not None else ""
+        rows.append([name, "support", s, sup["kind"] + (f" ({given})" if given else "") + stiff
+                     + (", a plane of symmetry" if sup.get("mirror") else "")])
+    rows += [[name, "force", s, f"{f} N"] for s, f in o.get("force", {}).items()]
+    rows += [[name, "pressure", s, f"{p:g} Pa"] for s, p in o.get("pressure", {}).items()]
+    rows += [[name, "bolt preload", s, f"{f:g} N"] for s, f in o.get("preload", {}).items()]
+    if o.get("gravity") is not None:
+        rows.append([name, "gravity", "all parts", f"{o['gravity']} m/s^2"])
+    return rows

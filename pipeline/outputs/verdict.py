@@ -5,7 +5,6 @@ solve), shared by the report and the end of a run on the command line.
 
 from __future__ import annotations
 
-from ..model.finishes import FINISHES
 from ..model.units import celsius
 
 #: A margin below this (10 % of a limit or of the required safety factor) is "near".
@@ -89,43 +88,16 @@ def text(lines: list[dict]) -> str:
                      for v in lines)
 
 
-def _degC(kelvin: float) -> str:
-    return f"{celsius(kelvin):.1f} degC"
-
-
 def loads(record: dict) -> list[list[str]]:
-    """Every load and boundary condition with its units: [stage, kind, where, value]."""
+    """Every load and boundary condition with its units: [stage, kind, where, value], from each stage
+    kind's ``loads`` hook, and the element order and solver of every stage that solves."""
+    from .. import kinds
+
     rows = []
     for name, st in record["stages"].items():
         o = st.get("inputs", {}).get("options", {})
-        kind = st["kind"]
-        if kind == "heat":
-            rows += [[name, "power", p, f"{w:g} W"] for p, w in o.get("power", {}).items()]
-            rows += [[name, "generation", p, f"{q:g} W/m^3"] for p, q in o.get("generation", {}).items()]
-            rows += [[name, "heat flux", s, f"{q:g} W/m^2"] for s, q in o.get("flux", {}).items()]
-            for s, c in o.get("convection", {}).items():
-                law = (f", h ~ dT^{c['exponent']:g} from {c['reference_difference']:g} K" if c.get("exponent") else "")
-                rows.append([name, "convection", s, f"h = {c['film_coefficient']:g} W/(m^2 K) to {_degC(c['ambient'])}{law}"])
-            for s, r in o.get("radiation", {}).items():
-                e = r["emissivity"]
-                value = f"{FINISHES[e][0]:g} ({e})" if isinstance(e, str) and e in FINISHES else f"{e}"
-                rows.append([name, "radiation", s, f"emissivity {value} to surroundings at {_degC(r['surroundings'])}"])
-            rows += [[name, "fixed temperature", s, _degC(t)] for s, t in o.get("fixed_temperature", {}).items()]
-            adiabatic = st.get("adiabatic_surfaces", [])
-            if adiabatic:
-                rows.append([name, "adiabatic (no heat leaves)", ", ".join(adiabatic), "-"])
-        elif kind == "map":
-            rows.append([name, "stress-free temperature", "all parts", _degC(o["reference"])])
-            rows += [[name, "stress-free temperature", p, _degC(t)] for p, t in o.get("reference_by_part", {}).items()]
-        elif kind == "stress":
-            for s, sup in o.get("supports", {}).items():
-                given = ", ".join(f"{a} = {sup[a]:g} m" for a in "xyz" if sup.get(a) is not None)
-                stiff = f", {sup['stiffness']:g} N/m^3" if sup.get("stiffness") is not None else ""
-                rows.append([name, "support", s, sup["kind"] + (f" ({given})" if given else "") + stiff])
-            rows += [[name, "force", s, f"{f} N"] for s, f in o.get("force", {}).items()]
-            rows += [[name, "pressure", s, f"{p:g} Pa"] for s, p in o.get("pressure", {}).items()]
-            if o.get("gravity") is not None:
-                rows.append([name, "gravity", "all parts", f"{o['gravity']} m/s^2"])
+        if st["kind"] in kinds.names():
+            rows += kinds.hook(st["kind"], "loads")(name, st)
         if "order" in o:
             solver = st.get("solver", {})
             rows.append([name, "solution", "-", f"P{o['order']} elements, solver {o.get('solver', 'auto')}"
