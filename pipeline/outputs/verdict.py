@@ -5,7 +5,6 @@ solve), shared by the report and the end of a run on the command line.
 
 from __future__ import annotations
 
-from ..model.units import celsius
 
 #: A margin below this (10 % of a limit or of the required safety factor) is "near".
 NEAR = 0.1
