@@ -79,6 +79,10 @@ def test_laminate_rules_and_bad_layers():
     assert m.kind == "orthotropic"
     assert m.conductivity[0] == pytest.approx((cu.conductivity[0] + 3 * al.conductivity[0]) / 4, rel=1e-14)
     assert m.conductivity[2] == pytest.approx(4 / (1 / cu.conductivity[0] + 3 / al.conductivity[0]), rel=1e-14)
+    # heat capacity per volume adds up through the stack: c = sum t rho c / sum t rho (mass-weighted)
+    mass = cu.density + 3 * al.density
+    assert m.specific_heat == pytest.approx((cu.density * cu.specific_heat + 3 * al.density * al.specific_heat) / mass,
+                                            rel=1e-14)
     same = lib.extended({"cu": {"kind": "laminate", "layers": [
         {"material": "copper_c11000", "thickness": 1e-3, "fraction": 1.0, "fill": "fr4"}]}}, "t")["cu"]
     assert same.expansion == pytest.approx(cu.expansion * 3, rel=1e-12)

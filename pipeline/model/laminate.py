@@ -18,7 +18,7 @@ Materials, 2nd ed., 1999, ch. 4 for the in-plane laminate stiffness and expansio
                               - (nu_yz/E_y) s_y,i, s_i = Q_i (alpha - alpha_i) the layer's in-plane
                               stress per kelvin (free in z, held to the common in-plane strain);
                               nu_xz, nu_yz thickness-weighted (common practice)
-  density                     thickness-weighted.
+  density                     thickness-weighted; specific heat mass-weighted (when every layer gives it).
   patterned layer             metal and fill side by side: every property of the layer by the rule of
                               mixtures in f (in-plane as two sub-layers f t and (1 - f) t; through the
                               layer parallel, the metal spanning its thickness: common practice).
@@ -34,7 +34,7 @@ from .. import errors
 
 LAYER_KEYS = {"material", "thickness", "fraction", "fill"}
 #: keys of a laminate record besides its layers (passed through to the orthotropic result)
-PASSED = ("title", "brittle", "note", "yield_strength", "tensile_strength", "tensile_strength_axes",
+PASSED = ("title", "brittle", "note", "specific_heat", "yield_strength", "tensile_strength", "tensile_strength_axes",
           "shear_strength_axes", "valid_from", "valid_to", "sources")
 
 
@@ -45,7 +45,9 @@ def _constants(m):
     nu = np.broadcast_to(np.asarray(m.poisson_ratio, float), (3,)).copy()
     g = np.asarray(m.shear_modulus, float) if len(m.shear_modulus) == 3 else np.full(3, e[0] / (2 * (1 + nu[0])))
     a = np.broadcast_to(np.asarray(m.expansion, float), (3,)).copy()
-    return {"k": k, "E": e, "nu": nu, "G": g, "alpha": a, "rho": float(m.density)}
+    c = getattr(m, "specific_heat", None)
+    return {"k": k, "E": e, "nu": nu, "G": g, "alpha": a, "rho": float(m.density),
+            "rho_c": float(m.density) * c if c else np.nan}
 
 
 def _q(c) -> np.ndarray:
@@ -94,7 +96,13 @@ def effective(layers: list[tuple[float, float, object, object | None]]) -> dict:
                           total / sum(t / c["G"][1] for t, c in through), total / sum(t / c["G"][2] for t, c in through)),
         "expansion": (float(alpha_in[0]), float(alpha_in[1]), eps_z / total),
         "density": sum(t * c["rho"] for t, c in subs) / total,
-    }
+    } | _specific_heat(subs)
+
+
+def _specific_heat(subs) -> dict:
+    """Mass-weighted specific heat sum t rho c / sum t rho [J/(kg*K)], when every layer gives one."""
+    heat = sum(t * c["rho_c"] for t, c in subs)
+    return {} if not np.isfinite(heat) else {"specific_heat": heat / sum(t * c["rho"] for t, c in subs)}
 
 
 def build(name: str, record: dict, library, where: str):
