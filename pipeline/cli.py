@@ -17,7 +17,7 @@ from . import __version__, errors
 
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="thermochain", description=(
-        "Steady heat -> thermal strain -> stress finite elements for electronics housings."))
+        "Heat (steady or transient) -> thermal strain -> stress finite elements for electronics housings."))
     p.add_argument("--version", action="version", version=f"thermochain {__version__}")
     p.add_argument("--debug", action="store_true", help="show tracebacks")
     p.add_argument("-q", "--quiet", action="store_true", help="only errors")

@@ -8,6 +8,8 @@ caution for bilateral supports that pull.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import meshes
 import numpy as np
 import pytest
@@ -139,3 +141,21 @@ def test_a_body_that_would_lift_off_every_contact_support_is_refused():
     sup = {"xmin": Support("symmetry"), "ymin": Support("symmetry"), "zmin": Support("contact")}
     with pytest.raises(errors.PhysicsError, match="lift off"):
         stress.solve(d, None, stress.StressSpec({"body": solid()}, sup, force={"zmax": (0.0, 0.0, 10.0)}, order=1))
+
+
+def test_a_minimal_support_with_an_applied_force_reports_the_force_once():
+    """Issue 22's careless case: a minimal support under a 100 N force reported 296 N of reaction (its
+    repeated constraint rows were each given the residual). Statics: the reactions balance the applied
+    force exactly, to the solve's round-off."""
+    import pipeline
+    from pipeline.stages import stress
+    from pipeline.stages.supports import Support
+
+    d = pipeline.load_mesh(Path(__file__).parent.parent / "cases/heat_spreader/heat_spreader_coarse.msh", unit="mm")
+    lib = pipeline.material_library()
+    mats = {"spreader": lib["aluminium_6061_t6"], "board": lib["fr4"], "chip": lib["silicon"],
+            "regulator": lib["silicon"]}
+    r = stress.solve(d, None, stress.StressSpec(mats, {"free": Support("minimal")}, force={"top_air": (0.0, 0.0, 100.0)},
+                                                order=1))
+    assert np.allclose(r.reactions["free"], [0.0, 0.0, -100.0], atol=1e-8)
+    assert r.equilibrium["relative"] < 1e-10

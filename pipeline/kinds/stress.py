@@ -192,15 +192,23 @@ def figures(folder, name, entry, field, domain, context: base.OutputContext) -> 
         f = parts[part]
         quantity = "principal" if (f.get("criterion") or "").startswith("brittle") else "von_mises"
         flags = f.get("principal_max" if quantity == "principal" else "von_mises")
-        out.append(fig.stress_part(folder / f"{name}_{part}.png", domain, field, part, singular, f.get("strength_Pa"),
+        out.append(fig.stress_part(folder / f"{name}_{_stem(domain, part)}.png", domain, field, part, singular, f.get("strength_Pa"),
                                    quantity, flags if isinstance(flags, dict) else None))
     board = fig.most_bonded(domain)
     if fig.plate_like(domain, board):
-        out.append(fig.warpage(folder / f"{name}_warpage_{board}.png", domain, field, board))
+        out.append(fig.warpage(folder / f"{name}_warpage_{_stem(domain, board)}.png", domain, field, board))
     for line, records in getattr(field, "lines", {}).items():
         out.append(fig.line_records(folder / f"{name}_line_{line}.png", line, records))
     out.append(fig.von_mises_deformed(folder / f"{name}_von_mises.png", domain, field))
     return out
+
+
+def _stem(domain, part: str) -> str:
+    """A part's name in a file name: the name itself when it is a plain name, else ``part`` and its
+    ``part_id`` (mesh group names may hold spaces, slashes or dots; none may reach a path)."""
+    from ..flow.workflow import plain_name
+
+    return part if plain_name(part) else f"part{sorted(domain.parts).index(part)}"
 
 
 def _feature_vertices(domain, entry: dict) -> np.ndarray:

@@ -11,8 +11,9 @@ from .. import files
 
 CAUTION = (
     "Temperatures and stresses from thermochain are numerical estimates whose accuracy depends on the inputs "
-    "(powers, film coefficients, material data), on the mesh and on the simplifying assumptions (steady state, "
-    "perfect contact between parts that share nodes). Check them against tests and have them reviewed by a "
+    "(powers, film coefficients, contact conductances, material data), on the mesh and on the simplifying "
+    "assumptions (linear elasticity, bonded or tied parts, no fluid flow, life estimates that are screening values "
+    "with wide scatter). Check them against tests and have them reviewed by a "
     "qualified engineer, a licensed professional engineer where required, before any design release or safety "
     "decision; applicable codes, standards and component datasheets take precedence."
 )
