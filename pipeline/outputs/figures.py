@@ -360,8 +360,11 @@ def stress_part(path: Path, domain, sfield, part: str, singular: np.ndarray | No
     surface = np.unique(tri)
     values = np.zeros(nv)
     values[ids[ids < nv]] = vm[ids < nv] / 1e6
-    on_piece = body[_nearest_many(domain.points, vertices, where)] == home
-    calm = np.flatnonzero(~flagged & on_piece)
+    # the peak away from singular features: on the drawn surface of the piece (the colour range ends there)
+    calm = np.flatnonzero(~flagged & np.isin(ids, surface))
+    if not len(calm):
+        on_piece = body[_nearest_many(domain.points, vertices, where)] == home
+        calm = np.flatnonzero(~flagged & on_piece)
     i_calm = int(calm[np.argmax(vm[calm])]) if len(calm) else i_peak
     drawn = values[surface]
     keep = ~np.isin(surface, ids[flagged])
