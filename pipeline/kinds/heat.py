@@ -232,18 +232,26 @@ def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
         out.append(Notice("heat.adiabatic", f"adiabatic (no heat leaves): {', '.join(open_)}; check that no "
                           "convection or fixed temperature was forgotten (list intended ones under 'adiabatic')",
                           name, {"surfaces": open_}))
-    limits = context.limits_degC
-    for part, s in entry["parts_degC"].items():
-        if part in limits and s["max"] > limits[part]:
-            out.append(Notice("heat.over_limit", f"part {part} reaches {s['max']:.1f} degC, above its limit "
-                              f"{limits[part]:.1f} degC", name,
-                              {"part": part, "max_degC": s["max"], "limit_degC": limits[part]}))
+    out += over_limit(name, entry["parts_degC"], context.limits_degC)
     for r in heat.supplying(entry["heat_balance_W"]):
         out.append(Notice("heat.ambient_supplies", f"surface '{r['name']}' ({r['kind']} to a fixed ambient) supplies "
                           f"{r['heat_in_W']:+.4g} W to the solids; if it faces enclosed air, model the air as a "
                           "cavity (stages.NAME.cavities), whose temperature follows from its balance", name,
                           {"surface": r["name"], "kind": r["kind"], "heat_in_W": r["heat_in_W"]}))
     out += [Notice.of(n).at(name) for n in entry.get("notice_records", [])]
+    return out
+
+
+def over_limit(name: str, parts_degC: dict, limits: dict[str, float]) -> list[Notice]:
+    """A ``heat.over_limit`` notice for every part whose peak [degC] exceeds its limit [degC] (the peak's
+    time [s] is said where the part's figures carry one, as a transient stage's do)."""
+    out = []
+    for part, s in parts_degC.items():
+        if part in limits and s["max"] > limits[part]:
+            when = f" at {s['time_s']:.4g} s" if "time_s" in s else ""
+            out.append(Notice("heat.over_limit", f"part {part} reaches {s['max']:.1f} degC{when}, above its limit "
+                              f"{limits[part]:.1f} degC", name,
+                              {"part": part, "max_degC": s["max"], "limit_degC": limits[part]}))
     return out
 
 

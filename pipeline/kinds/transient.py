@@ -240,13 +240,7 @@ def figures(folder, name, entry, field, domain, context: base.OutputContext) -> 
 
 def notices(name, entry, domain, context: base.OutputContext) -> list[Notice]:
     out = [Notice("transient.notice", n, name) for n in entry.get("notices", [])]
-    limits = context.limits_degC
-    for part, s in entry["parts_degC"].items():
-        if part in limits and s["max"] > limits[part]:
-            out.append(Notice("heat.over_limit", f"part {part} reaches {s['max']:.1f} degC at {s['time_s']:.4g} s, "
-                              f"above its limit {limits[part]:.1f} degC", name,
-                              {"part": part, "max_degC": s["max"], "limit_degC": limits[part]}))
-    return out
+    return out + heat_kind.over_limit(name, entry["parts_degC"], context.limits_degC)
 
 
 def report(entry, context: base.OutputContext) -> list[str]:
